@@ -1,0 +1,25 @@
+# Two entry points for a fresh machine: `make demo` and `make test`.
+# Both create .venv with the machine's python3 (3.11+) and install what they need.
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+
+$(BIN)/.installed: pyproject.toml
+	$(PY) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[test,dev]'
+	touch $@
+
+.PHONY: demo test lint bench
+demo: $(BIN)/.installed
+	$(BIN)/stackledger demo
+
+test: $(BIN)/.installed
+	$(BIN)/python -m pytest -q
+
+lint: $(BIN)/.installed
+	$(BIN)/ruff check .
+	$(BIN)/mypy app/overlay
+
+bench: $(BIN)/.installed
+	$(BIN)/python benchmarks/core.py
