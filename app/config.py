@@ -1,0 +1,37 @@
+"""Application settings, read once from the environment (prefix ``STACKLEDGER_``)."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    """Everything the service reads from its environment."""
+
+    model_config = SettingsConfigDict(env_prefix="STACKLEDGER_", extra="ignore")
+
+    database_url: str = Field(
+        default_factory=lambda: f"sqlite:///{Path.cwd() / 'stackledger.db'}",
+        description="SQLAlchemy URL; default a SQLite file in the working directory.",
+    )
+    max_body_bytes: int = Field(
+        default=32 * 1024 * 1024, description="Largest request body accepted (JSON or CSV)."
+    )
+    max_sites_per_measurement: int = 2000
+    max_abs_displacement_um: float = Field(
+        default=1000.0, description="A site displacement beyond 1 mm is a tool error, not overlay."
+    )
+    import_chunk_rows: int = 200_000
+    forecast_samples: int = 2000
+    history_window_panels: int = 200
+    sqlite_busy_timeout_ms: int = 30_000
+
+
+@lru_cache
+def get_settings() -> Settings:
+    """The process-wide settings (tests clear the cache to change them)."""
+    return Settings()

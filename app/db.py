@@ -1,0 +1,67 @@
+"""Engine and session factory.
+
+SQLite (the embedded default) runs in WAL mode with foreign keys on and a busy timeout, and every
+transaction starts with BEGIN IMMEDIATE so that concurrent writers queue on the lock instead of
+failing half way with "database is locked". PostgreSQL needs nothing special.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
+from sqlalchemy import Engine, create_engine, event
+from sqlalchemy.orm import Session, sessionmaker
+
+from app.config import get_settings
+
+
+def is_sqlite(engine: Engine) -> bool:
+    return engine.dialect.name == "sqlite"
+
+
+def _sqlite_setup(engine: Engine, busy_timeout_ms: int) -> None:
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
+        # Let SQLAlchemy, not the sqlite3 module, decide when transactions begin.
+        dbapi_conn.isolation_level = None
+        cur = dbapi_conn.cursor()
+        cur.execute("PRAGMA journal_mode=WAL")
+        cur.execute("PRAGMA foreign_keys=ON")
+        cur.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
+        cur.execute("PRAGMA synchronous=NORMAL")
+        cur.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn: Any) -> None:
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def make_engine(url: str | None = None) -> Engine:
+    settings = get_settings()
+    url = url or settings.database_url
+    if url.startswith("sqlite"):
+        engine = create_engine(url, connect_args={"check_same_thread": False, "timeout": 30})
+        _sqlite_setup(engine, settings.sqlite_busy_timeout_ms)
+        return engine
+    if url.startswith("postgresql://"):
+        url = "postgresql+psycopg://" + url.removeprefix("postgresql://")
+    return create_engine(url, pool_pre_ping=True)
+
+
+class Database:
+    """One engine and its session factory; the app and the CLI each hold one."""
+
+    def __init__(self, url: str | None = None) -> None:
+        self.engine = make_engine(url)
+        self.sessions = sessionmaker(self.engine, expire_on_commit=False)
+
+    @contextmanager
+    def transaction(self) -> Iterator[Session]:
+        """A session whose work commits on success and rolls back on any error."""
+        with self.sessions() as session, session.begin():
+            yield session
+
+    def dispose(self) -> None:
+        self.engine.dispose()

@@ -1,0 +1,1 @@
+"""Persistence: the ORM tables of the traceability store."""

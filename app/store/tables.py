@@ -1,0 +1,262 @@
+"""ORM tables of the traceability store (SQLAlchemy 2 typed declarative).
+
+Scale-out rule: every table owned by a panel (measurements, sites, fits, panel states, holds)
+carries the panel serial, and every one of its unique keys (primary key included) contains it,
+so that the store can be distributed by panel on a distributed PostgreSQL, which requires unique
+keys to contain the distribution column. Ids of panel-owned rows are UUIDs made by the
+application, so no sequence is shared across shards.
+
+All coordinates and displacements stored here are in the panel frame except the ``*_posted``
+columns of ``sites``, which keep what the tool sent.
+"""
+
+from __future__ import annotations
+
+import uuid
+from datetime import UTC, datetime
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    DateTime,
+    Float,
+    ForeignKey,
+    ForeignKeyConstraint,
+    Index,
+    Integer,
+    LargeBinary,
+    MetaData,
+    String,
+    Text,
+    Uuid,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+NAMING = {
+    "ix": "ix_%(table_name)s_%(column_0_N_name)s",
+    "uq": "uq_%(table_name)s_%(column_0_N_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_N_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+
+def utcnow() -> datetime:
+    return datetime.now(UTC)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING)
+    type_annotation_map = {dict[str, Any]: JSON, list[Any]: JSON}
+
+
+Stamp = DateTime(timezone=True)
+
+
+class Product(Base):
+    __tablename__ = "products"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(64), unique=True)
+    name: Mapped[str] = mapped_column(String(200), default="")
+    layers_per_side: Mapped[int]
+    flip_axis: Mapped[str] = mapped_column(String(1))
+    panel_width_mm: Mapped[float]
+    panel_height_mm: Mapped[float]
+    ftb_limit_um: Mapped[float]
+    l2l_limit_um: Mapped[float]
+    model_terms: Mapped[int]
+    check_points_mm: Mapped[list[Any]]
+    p_watch: Mapped[float]
+    p_at_risk: Mapped[float]
+    connection: Mapped[dict[str, Any] | None]
+    created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+
+
+class Lot(Base):
+    __tablename__ = "lots"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    code: Mapped[str] = mapped_column(String(64), unique=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id"))
+    created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+
+
+class Panel(Base):
+    __tablename__ = "panels"
+
+    serial: Mapped[str] = mapped_column(String(64), primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id"), index=True)
+    lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id"), index=True)
+    status: Mapped[str] = mapped_column(String(16), default="in_process")
+    created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+
+
+class Measurement(Base):
+    __tablename__ = "measurements"
+    __table_args__ = (Index("ix_measurements_current", "panel", "side", "layer"),)
+
+    panel: Mapped[str] = mapped_column(ForeignKey("panels.serial"), primary_key=True)
+    id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True, default=uuid.uuid4)
+    layer: Mapped[int]
+    side: Mapped[str] = mapped_column(String(1))
+    frame: Mapped[str] = mapped_column(String(8))
+    tool: Mapped[str] = mapped_column(String(64))
+    measured_at: Mapped[datetime] = mapped_column(Stamp)
+    received_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+    n_sites: Mapped[int]
+    superseded_by: Mapped[uuid.UUID | None] = mapped_column(Uuid)
+    source: Mapped[str] = mapped_column(String(16), default="api")  # "api" or "import"
+    key_label: Mapped[str] = mapped_column(String(100), default="")
+
+
+class Site(Base):
+    __tablename__ = "sites"
+    __table_args__ = (
+        ForeignKeyConstraint(
+            ["panel", "measurement_id"], ["measurements.panel", "measurements.id"]
+        ),
+    )
+
+    panel: Mapped[str] = mapped_column(String(64), primary_key=True)
+    measurement_id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer, primary_key=True)
+    x_mm_posted: Mapped[float]
+    y_mm_posted: Mapped[float]
+    dx_um_posted: Mapped[float]
+    dy_um_posted: Mapped[float]
+    x_mm: Mapped[float]
+    y_mm: Mapped[float]
+    dx_um: Mapped[float]
+    dy_um: Mapped[float]
+
+
+class Fit(Base):
+    """The least-squares fit of one measurement, terms in the panel frame (raw units)."""
+
+    __tablename__ = "fits"
+    __table_args__ = (
+        ForeignKeyConstraint(
+            ["panel", "measurement_id"], ["measurements.panel", "measurements.id"]
+        ),
+    )
+
+    panel: Mapped[str] = mapped_column(String(64), primary_key=True)
+    measurement_id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True)
+    model: Mapped[str] = mapped_column(String(16))
+    requested: Mapped[str] = mapped_column(String(16))
+    note: Mapped[str | None] = mapped_column(Text)
+    tx: Mapped[float]
+    ty: Mapped[float]
+    sx: Mapped[float]
+    sy: Mapped[float]
+    ox: Mapped[float]
+    oy: Mapped[float]
+    kx: Mapped[float]
+    ky: Mapped[float]
+    mean_x_um: Mapped[float]
+    mean_y_um: Mapped[float]
+    sigma_x_um: Mapped[float]
+    sigma_y_um: Mapped[float]
+    max_residual_um: Mapped[float]
+    max_residual_x_mm: Mapped[float]
+    max_residual_y_mm: Mapped[float]
+
+
+class PanelState(Base):
+    """The running estimate of a panel, rewritten in the transaction of every accepted
+    measurement, so that reads never recompute from raw data."""
+
+    __tablename__ = "panel_states"
+
+    panel: Mapped[str] = mapped_column(ForeignKey("panels.serial"), primary_key=True)
+    layers_a: Mapped[list[Any]]
+    layers_b: Mapped[list[Any]]
+    missing_a: Mapped[list[Any]]
+    missing_b: Mapped[list[Any]]
+    ftb_worst_um: Mapped[float] = mapped_column(Float, index=True)
+    ftb_worst_x_mm: Mapped[float]
+    ftb_worst_y_mm: Mapped[float]
+    ftb_points: Mapped[list[Any]]
+    l2l_worst_um: Mapped[float]
+    stack: Mapped[dict[str, Any]]
+    forecast: Mapped[dict[str, Any] | None]
+    p_exceed: Mapped[float | None] = mapped_column(Float, index=True)
+    risk: Mapped[str] = mapped_column(String(16), index=True)
+    risk_rule: Mapped[str] = mapped_column(String(40))
+    reasons: Mapped[list[Any]]
+    updated_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+
+
+class Hold(Base):
+    __tablename__ = "holds"
+    __table_args__ = (Index("ix_holds_state_severity", "state", "severity"),)
+
+    panel: Mapped[str] = mapped_column(ForeignKey("panels.serial"), primary_key=True)
+    id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True, default=uuid.uuid4)
+    state: Mapped[str] = mapped_column(String(16), default="open")  # open | closed
+    kind: Mapped[str] = mapped_column(String(16))  # automatic | manual
+    rule: Mapped[str] = mapped_column(String(40))
+    severity: Mapped[int]
+    reason: Mapped[str] = mapped_column(Text)
+    figures: Mapped[dict[str, Any]]
+    held_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+    held_by: Mapped[str] = mapped_column(String(100))
+    disposition: Mapped[str | None] = mapped_column(String(16))  # release | scrap | rework
+    disposition_note: Mapped[str | None] = mapped_column(Text)
+    disposed_at: Mapped[datetime | None] = mapped_column(Stamp)
+    disposed_by: Mapped[str | None] = mapped_column(String(100))
+
+
+class RejectedUpload(Base):
+    """Every upload that was refused, with its body and the reason: nothing is dropped silently."""
+
+    __tablename__ = "rejected_uploads"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    received_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+    endpoint: Mapped[str] = mapped_column(String(200))
+    key_label: Mapped[str] = mapped_column(String(100), default="")
+    status: Mapped[int]
+    reason: Mapped[str] = mapped_column(Text)
+    errors: Mapped[list[Any]]
+    content_type: Mapped[str] = mapped_column(String(200), default="")
+    body: Mapped[bytes] = mapped_column(LargeBinary)
+
+
+class IdempotencyRecord(Base):
+    """The stored answer to a request sent with an Idempotency-Key header."""
+
+    __tablename__ = "idempotency_records"
+
+    key: Mapped[str] = mapped_column(String(200), primary_key=True)
+    key_owner: Mapped[int] = mapped_column(Integer, primary_key=True)  # api key id
+    body_sha256: Mapped[str] = mapped_column(String(64))
+    status_code: Mapped[int]
+    response: Mapped[dict[str, Any]]
+    created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+
+
+class ApiKey(Base):
+    """An API key, stored only as its SHA-256 hash and a short non-secret prefix."""
+
+    __tablename__ = "api_keys"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    prefix: Mapped[str] = mapped_column(String(16), unique=True)
+    sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    role: Mapped[str] = mapped_column(String(16))
+    label: Mapped[str] = mapped_column(String(100))
+    created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
+    revoked_at: Mapped[datetime | None] = mapped_column(Stamp)
+
+
+class AuditEntry(Base):
+    __tablename__ = "audit_log"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    at: Mapped[datetime] = mapped_column(Stamp, default=utcnow, index=True)
+    actor: Mapped[str] = mapped_column(String(100))
+    action: Mapped[str] = mapped_column(String(40))
+    subject: Mapped[str] = mapped_column(String(100), index=True)
+    details: Mapped[dict[str, Any]]
