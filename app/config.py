@@ -19,7 +19,10 @@ class Settings(BaseSettings):
         description="SQLAlchemy URL; default a SQLite file in the working directory.",
     )
     max_body_bytes: int = Field(
-        default=32 * 1024 * 1024, description="Largest request body accepted (JSON or CSV)."
+        default=8 * 1024 * 1024, description="Largest JSON request body accepted."
+    )
+    max_import_bytes: int = Field(
+        default=256 * 1024 * 1024, description="Largest CSV upload accepted by /imports."
     )
     max_sites_per_measurement: int = 2000
     max_abs_displacement_um: float = Field(

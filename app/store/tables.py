@@ -28,8 +28,10 @@ from sqlalchemy import (
     MetaData,
     String,
     Text,
+    TypeDecorator,
     Uuid,
 )
+from sqlalchemy.engine import Dialect
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
 NAMING = {
@@ -50,7 +52,30 @@ class Base(DeclarativeBase):
     type_annotation_map = {dict[str, Any]: JSON, list[Any]: JSON}
 
 
-Stamp = DateTime(timezone=True)
+class UtcDateTime(TypeDecorator[datetime]):
+    """An aware timestamp, stored as UTC on every database and read back as aware UTC.
+
+    (SQLite keeps no time zone, so a plain DateTime(timezone=True) would come back naive.)
+    """
+
+    impl = DateTime(timezone=True)
+    cache_ok = True
+
+    def process_bind_param(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        if value is None:
+            return None
+        if value.tzinfo is None:
+            raise ValueError("timestamps must carry a time zone")
+        value = value.astimezone(UTC)
+        return value.replace(tzinfo=None) if dialect.name == "sqlite" else value
+
+    def process_result_value(self, value: datetime | None, dialect: Dialect) -> datetime | None:
+        if value is None:
+            return None
+        return value.replace(tzinfo=UTC) if value.tzinfo is None else value.astimezone(UTC)
+
+
+Stamp = UtcDateTime()
 
 
 class Product(Base):

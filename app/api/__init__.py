@@ -1,0 +1,1 @@
+"""HTTP layer: thin routes over the services, one problem-document error shape."""

@@ -1,0 +1,49 @@
+"""Annotated dependencies so that handlers read as plain signatures."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Annotated
+
+from fastapi import Depends, Request
+from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
+
+from app.db import Database
+from app.services import keys
+from app.services.keys import Principal
+
+_bearer = HTTPBearer(auto_error=False, description="An API key: 'Authorization: Bearer <key>'")
+
+
+def get_db(request: Request) -> Database:
+    db: Database = request.app.state.db
+    return db
+
+
+DbDep = Annotated[Database, Depends(get_db)]
+
+
+def _allowed(action: str) -> Callable[..., Principal]:
+    def dependency(
+        request: Request,
+        db: DbDep,
+        credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
+    ) -> Principal:
+        header = f"Bearer {credentials.credentials}" if credentials else None
+        principal = keys.authenticate(db=db, authorization=header)
+        request.scope["stackledger.key_label"] = principal.label
+        principal.require(action)
+        return principal
+
+    dependency.__name__ = f"allow_{action}"
+    return dependency
+
+
+PostMeasurement = Annotated[Principal, Depends(_allowed("post_measurement"))]
+RegisterPanel = Annotated[Principal, Depends(_allowed("register_panel"))]
+ReadProduct = Annotated[Principal, Depends(_allowed("read_product"))]
+CreateProduct = Annotated[Principal, Depends(_allowed("create_product"))]
+Query = Annotated[Principal, Depends(_allowed("query"))]
+PlaceHold = Annotated[Principal, Depends(_allowed("hold"))]
+Dispose = Annotated[Principal, Depends(_allowed("disposition"))]
+Metrics = Annotated[Principal, Depends(_allowed("metrics"))]

@@ -1,0 +1,125 @@
+"""One error shape for every 4xx and 5xx: an RFC 9457 problem document
+(``application/problem+json``) that says what is wrong (``detail``) and where (``errors``).
+
+Refused uploads (POST of measurements, imports and panels) are also kept, with their body and
+reason, in ``rejected_uploads``: nothing sent to the store is dropped silently.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from typing import Any, Final
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from pydantic import BaseModel
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from app.errors import DomainError, FieldError
+from app.services import keys, rejections
+
+log = logging.getLogger("stackledger")
+
+PROBLEM_BASE: Final = "https://stackledger.invalid/problems/"
+UPLOAD_PATHS: Final = ("/api/v1/measurements", "/api/v1/imports", "/api/v1/panels")
+
+
+class ProblemError(BaseModel):
+    message: str
+    pointer: str | None = None
+    row: int | None = None
+    column: str | None = None
+
+
+class Problem(BaseModel):
+    """RFC 9457 problem details."""
+
+    type: str
+    title: str
+    status: int
+    detail: str
+    instance: str | None = None
+    errors: list[ProblemError] = []
+
+
+PROBLEM_RESPONSES: Final[dict[int | str, dict[str, Any]]] = {
+    code: {"model": Problem, "content": {"application/problem+json": {}},
+           "description": text}
+    for code, text in [
+        (400, "Malformed request"), (401, "No valid API key"),
+        (403, "Role may not do this"), (404, "Not found"), (409, "Conflict"),
+        (413, "Body too large"), (422, "Content not acceptable"),
+    ]
+}
+
+
+def problem_response(
+    request: Request, *, status: int, title: str, slug: str, detail: str,
+    errors: list[FieldError] | None = None,
+) -> JSONResponse:
+    body = Problem(
+        type=PROBLEM_BASE + slug, title=title, status=status, detail=detail,
+        instance=request.url.path,
+        errors=[ProblemError(**e.as_dict()) for e in errors or []],
+    )
+    if request.method == "POST" and request.url.path.startswith(UPLOAD_PATHS):
+        _keep_rejected(request, status, detail, errors or [])
+    return JSONResponse(
+        body.model_dump(exclude_none=True), status_code=status,
+        media_type="application/problem+json",
+    )
+
+
+def _keep_rejected(request: Request, status: int, detail: str, errors: list[FieldError]) -> None:
+    raw: bytes = request.scope.get("stackledger.body", b"")
+    db = request.app.state.db
+    try:
+        label = request.scope.get("stackledger.key_label") or keys.label_for(
+            db=db, authorization=request.headers.get("authorization"))
+        rejections.record(
+            db=db, endpoint=request.url.path, key_label=label,
+            status=status, reason=detail, errors=[e.as_dict() for e in errors],
+            content_type=request.headers.get("content-type", ""), body=raw,
+            truncated=bool(request.scope.get("stackledger.body_truncated")),
+        )
+    except Exception:  # the answer must still go out; the log says what was lost
+        log.exception("could not record a rejected upload to %s", request.url.path)
+
+
+def _pointer(loc: tuple[Any, ...]) -> str:
+    parts = [str(p) for p in loc[1:]] if loc and loc[0] in ("body", "query", "path") else []
+    where = loc[0] if loc else "body"
+    return f"{where}:/" + "/".join(parts) if where != "body" else "/" + "/".join(parts)
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(DomainError)
+    async def _domain(request: Request, exc: DomainError) -> JSONResponse:
+        return problem_response(request, status=exc.status, title=exc.title,
+                                slug=exc.type_slug, detail=exc.detail, errors=exc.errors)
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
+        errors = [
+            FieldError(message=str(e.get("msg", "invalid")), pointer=_pointer(tuple(e["loc"])))
+            for e in exc.errors()
+        ]
+        first = errors[0] if errors else FieldError(message="invalid request")
+        return problem_response(
+            request, status=422, title="Invalid input", slug="invalid-input",
+            detail=f"{len(errors)} problem(s) in the request; first at {first.pointer}: "
+                   f"{first.message}",
+            errors=errors,
+        )
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
+        return problem_response(request, status=exc.status_code, title=str(exc.detail),
+                                slug="http-" + str(exc.status_code), detail=str(exc.detail))
+
+    @app.exception_handler(json.JSONDecodeError)
+    async def _json(request: Request, exc: json.JSONDecodeError) -> JSONResponse:
+        return problem_response(request, status=400, title="Malformed request",
+                                slug="bad-request", detail=f"body is not valid JSON: {exc}")

@@ -1,0 +1,37 @@
+from __future__ import annotations
+
+from typing import Literal
+
+from fastapi import APIRouter
+from fastapi.responses import PlainTextResponse
+
+from app.api.deps import DbDep, Dispose, Query
+from app.api.problems import PROBLEM_RESPONSES
+from app.schemas.holds import DispositionCreate, HoldList, HoldRead
+from app.services import holds
+from app.services.hold_list import holds_csv
+
+router = APIRouter(prefix="/api/v1/holds", tags=["holds"], responses=PROBLEM_RESPONSES)
+
+
+@router.get("", response_model=HoldList)
+def list_holds(db: DbDep, _: Query, state: Literal["open", "closed"] = "open") -> HoldList:
+    """The hold list, worst first then oldest first, with the disposition caution."""
+    return holds.list_holds(db=db, state=state)
+
+
+@router.get(".csv", response_class=PlainTextResponse,
+            responses={200: {"content": {"text/csv": {}}}})
+def list_holds_csv(
+    db: DbDep, _: Query, state: Literal["open", "closed"] = "open"
+) -> PlainTextResponse:
+    """The hold list as CSV (cells safe against formula injection)."""
+    text = holds_csv(holds.list_holds(db=db, state=state))
+    return PlainTextResponse(text, media_type="text/csv; charset=utf-8",
+                             headers={"Content-Disposition": 'attachment; filename="holds.csv"'})
+
+
+@router.post("/{hold_id}/disposition", response_model=HoldRead)
+def dispose(hold_id: str, data: DispositionCreate, db: DbDep, who: Dispose) -> HoldRead:
+    """Release, scrap or rework a held panel, with a required note (supervisor or admin)."""
+    return holds.dispose(db=db, hold_id=hold_id, data=data, principal=who)

@@ -1,0 +1,44 @@
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, File, Header, Request, UploadFile
+from fastapi.responses import JSONResponse
+
+from app.api.body import raw_body
+from app.api.deps import DbDep, PostMeasurement
+from app.api.problems import PROBLEM_RESPONSES
+from app.schemas.measurements import ImportRead, MeasurementCreate, MeasurementRead
+from app.services import imports, measurements
+
+router = APIRouter(prefix="/api/v1", tags=["measurements"], responses=PROBLEM_RESPONSES)
+
+
+@router.post(
+    "/measurements", response_model=MeasurementRead, status_code=201,
+    responses={200: {"model": MeasurementRead, "description": "Replay of an Idempotency-Key"}},
+)
+def post_measurement(
+    data: MeasurementCreate,
+    request: Request,
+    db: DbDep,
+    who: PostMeasurement,
+    idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
+) -> Any:
+    """Post one layer's overlay measurement of one panel and side; answers the fit and the
+    panel's updated state. A repeat for the same panel, layer and side supersedes."""
+    status, body = measurements.accept(
+        db=db, data=data, principal=who, body=raw_body(request),
+        idempotency_key=idempotency_key,
+    )
+    return JSONResponse(body, status_code=status)
+
+
+@router.post("/imports", response_model=ImportRead, status_code=201)
+def post_import(
+    db: DbDep, who: PostMeasurement, file: Annotated[UploadFile, File()]
+) -> ImportRead:
+    """Import a CSV file of site rows, all or nothing; errors give row, column and message."""
+    return imports.import_csv(
+        db=db, stream=file.file, name=file.filename or "upload.csv", principal_label=who.label
+    )

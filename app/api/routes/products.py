@@ -1,0 +1,22 @@
+from __future__ import annotations
+
+from fastapi import APIRouter
+
+from app.api.deps import CreateProduct, DbDep, ReadProduct
+from app.api.problems import PROBLEM_RESPONSES
+from app.schemas.products import ProductCreate, ProductRead
+from app.services import products
+
+router = APIRouter(prefix="/api/v1/products", tags=["products"], responses=PROBLEM_RESPONSES)
+
+
+@router.post("", response_model=ProductRead, status_code=201)
+def create_product(data: ProductCreate, db: DbDep, who: CreateProduct) -> ProductRead:
+    """Register a product: stack-up, side-B flip axis, limits and check points (admin)."""
+    return products.create(db=db, data=data, actor=who.label)
+
+
+@router.get("/{code}", response_model=ProductRead)
+def get_product(code: str, db: DbDep, _: ReadProduct) -> ProductRead:
+    """One product's settings."""
+    return products.get(db=db, code=code)

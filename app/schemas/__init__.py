@@ -1,0 +1,1 @@
+"""Pydantic request and response schemas, named on one ladder: XCreate, XRead, XPage."""

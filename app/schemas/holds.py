@@ -1,0 +1,55 @@
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+CAUTION = (
+    "stackledger flags panels from overlay data and forecasts; it does not decide their fate. "
+    "Release, scrap and rework are decisions for the fab's own quality procedures and "
+    "qualified engineers."
+)
+
+
+class HoldCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    reason: str = Field(min_length=3, max_length=2000)
+
+
+class DispositionCreate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    action: Literal["release", "scrap", "rework"]
+    note: str = Field(min_length=3, max_length=2000, description="Required: why, and on whose "
+                      "authority under the fab's quality procedure.")
+
+
+class HoldRead(BaseModel):
+    id: str
+    panel: str
+    lot: str
+    product: str
+    state: Literal["open", "closed"]
+    kind: Literal["automatic", "manual"]
+    rule: str
+    risk: str
+    severity: int
+    layers_reached: dict[str, int]
+    ftb_now_um: float
+    forecast_final_um: float | None
+    forecast_band_um: tuple[float, float] | None
+    p_exceed: float | None
+    reason: str
+    held_since: datetime
+    held_by: str
+    disposition: str | None = None
+    disposition_note: str | None = None
+    disposed_at: datetime | None = None
+    disposed_by: str | None = None
+
+
+class HoldList(BaseModel):
+    caution: str = CAUTION
+    holds: list[HoldRead]

@@ -1,0 +1,204 @@
+"""Holds and disposition.
+
+- Automatic hold: when a panel's risk enters at_risk or over_limit and it has no open hold. The
+  rule and the figures of that moment are kept with the hold.
+- A released panel is not held again for the same rule unless its p_exceed or its current FTB
+  has become worse than at release.
+- Manual hold: an engineer, with a reason.
+- Disposition (supervisor): release, scrap, or rework of the last layer (its re-measurement then
+  supersedes the old one through the normal upload). A note is required; every change is in the
+  audit log with who, when, what and the figures.
+
+The tool supports these decisions; they rest with the fab's own quality procedures and
+qualified engineers (``app.schemas.holds.CAUTION``).
+"""
+
+from __future__ import annotations
+
+import uuid
+from typing import Any, Final
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.db import Database
+from app.errors import Conflict, InvalidInput, NotFound
+from app.overlay.risk import RiskAssessment, severity
+from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
+from app.services import audit
+from app.services.keys import Principal
+from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
+
+HOLDING_LEVELS: Final = ("at_risk", "over_limit")
+AUTOMATIC: Final = "stackledger (automatic)"
+
+
+def _figures(state: PanelState) -> dict[str, Any]:
+    forecast = state.forecast or {}
+    return {
+        "ftb_worst_um": round(state.ftb_worst_um, 3),
+        "p_exceed": state.p_exceed,
+        "final_worst_um": forecast.get("final_worst_um"),
+        "band_um": forecast.get("band_um"),
+        "l2l_worst_um": round(state.l2l_worst_um, 3),
+        "layers": {"A": max(state.layers_a, default=0), "B": max(state.layers_b, default=0)},
+        "risk": state.risk,
+    }
+
+
+def _open_hold(session: Session, serial: str) -> Hold | None:
+    return session.scalars(
+        select(Hold).where(Hold.panel == serial, Hold.state == "open")
+    ).first()
+
+
+def _worse_than_release(session: Session, serial: str, rule: str, state: PanelState) -> bool:
+    """Whether the panel may be held again for ``rule`` after its last release for it."""
+    released = session.scalars(
+        select(Hold)
+        .where(Hold.panel == serial, Hold.rule == rule, Hold.disposition == "release")
+        .order_by(Hold.disposed_at.desc())
+    ).first()
+    if released is None:
+        return True
+    at_release = released.figures.get("at_release", released.figures)
+    p_then = at_release.get("p_exceed") or 0.0
+    ftb_then = at_release.get("ftb_worst_um") or 0.0
+    return (state.p_exceed or 0.0) > p_then or state.ftb_worst_um > ftb_then
+
+
+def apply_automatic(
+    session: Session, *, panel: Panel, state: PanelState, assessment: RiskAssessment
+) -> Hold | None:
+    """Put the panel on hold if its new state calls for it; returns the new hold, if any."""
+    if assessment.level not in HOLDING_LEVELS or panel.status == "scrapped":
+        return None
+    if _open_hold(session, panel.serial) is not None:
+        return None
+    if not _worse_than_release(session, panel.serial, assessment.rule, state):
+        return None
+    hold = Hold(
+        panel=panel.serial, id=uuid.uuid4(), state="open", kind="automatic",
+        rule=assessment.rule, severity=severity(assessment.level),
+        reason=" ".join(assessment.reasons), figures=_figures(state), held_at=utcnow(),
+        held_by=AUTOMATIC,
+    )
+    session.add(hold)
+    panel.status = "on_hold"
+    audit.record(session, actor=AUTOMATIC, action="hold", subject=panel.serial,
+                 details={"hold": str(hold.id), "rule": hold.rule, **hold.figures})
+    return hold
+
+
+def _read(session: Session, hold: Hold) -> HoldRead:
+    panel = session.get_one(Panel, hold.panel)
+    lot = session.get_one(Lot, panel.lot_id)
+    product = session.get_one(Product, panel.product_id)
+    state = session.get(PanelState, hold.panel)
+    forecast = (state.forecast if state else None) or {}
+    band = forecast.get("band_um")
+    return HoldRead(
+        id=str(hold.id), panel=hold.panel, lot=lot.code, product=product.code,
+        state=hold.state,  # type: ignore[arg-type]
+        kind=hold.kind,  # type: ignore[arg-type]
+        rule=hold.rule, risk=state.risk if state else "clear", severity=hold.severity,
+        layers_reached={
+            "A": max(state.layers_a, default=0) if state else 0,
+            "B": max(state.layers_b, default=0) if state else 0,
+        },
+        ftb_now_um=state.ftb_worst_um if state else 0.0,
+        forecast_final_um=forecast.get("final_worst_um"),
+        forecast_band_um=tuple(band) if band else None,  # type: ignore[arg-type]
+        p_exceed=state.p_exceed if state else None,
+        reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
+        disposition=hold.disposition, disposition_note=hold.disposition_note,
+        disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,
+    )
+
+
+def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) -> HoldRead:
+    """A manual hold by an engineer (or above)."""
+    with db.transaction() as session:
+        panel = session.get(Panel, serial)
+        if panel is None:
+            raise NotFound(f"no panel with serial '{serial}'")
+        if panel.status == "scrapped":
+            raise Conflict(f"panel '{serial}' is scrapped; it cannot be held")
+        if (existing := _open_hold(session, serial)) is not None:
+            raise Conflict(f"panel '{serial}' already has an open hold ({existing.id})")
+        state = session.get(PanelState, serial)
+        figures = _figures(state) if state else {}
+        level = state.risk if state else "clear"
+        hold = Hold(
+            panel=serial, id=uuid.uuid4(), state="open", kind="manual", rule="manual",
+            severity=max(severity(level), 1), reason=data.reason.strip(), figures=figures,
+            held_at=utcnow(), held_by=principal.label,
+        )
+        session.add(hold)
+        panel.status = "on_hold"
+        audit.record(session, actor=principal.label, action="hold", subject=serial,
+                     details={"hold": str(hold.id), "rule": "manual", "reason": hold.reason,
+                              **figures})
+        session.flush()
+        return _read(session, hold)
+
+
+def _last_layer(state: PanelState | None) -> dict[str, int]:
+    if state is None:
+        return {}
+    a, b = max(state.layers_a, default=0), max(state.layers_b, default=0)
+    # The last layer built is the higher one; at a balanced pair, side B follows side A.
+    return {"side": "B", "layer": b} if b >= a and b else {"side": "A", "layer": a}
+
+
+def dispose(
+    *, db: Database, hold_id: str, data: DispositionCreate, principal: Principal
+) -> HoldRead:
+    """Close an open hold with release, scrap or rework (supervisor or admin)."""
+    try:
+        key = uuid.UUID(hold_id)
+    except ValueError as exc:
+        raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
+    with db.transaction() as session:
+        hold = session.scalars(select(Hold).where(Hold.id == key)).one_or_none()
+        if hold is None:
+            raise NotFound(f"no hold with id '{hold_id}'")
+        if hold.state != "open":
+            raise Conflict(f"hold '{hold_id}' was already closed ({hold.disposition})")
+        panel = session.get_one(Panel, hold.panel)
+        state = session.get(PanelState, hold.panel)
+        figures = _figures(state) if state else {}
+        hold.state = "closed"
+        hold.disposition = data.action
+        hold.disposition_note = data.note.strip()
+        hold.disposed_at = utcnow()
+        hold.disposed_by = principal.label
+        details: dict[str, Any] = {"hold": hold_id, "action": data.action, "note": data.note,
+                                   **figures}
+        if data.action == "release":
+            hold.figures = {**hold.figures, "at_release": figures}
+            panel.status = "in_process"
+        elif data.action == "scrap":
+            panel.status = "scrapped"
+        else:
+            details["rework"] = _last_layer(state)
+            hold.figures = {**hold.figures, "rework": details["rework"]}
+            panel.status = "in_process"
+        audit.record(session, actor=principal.label, action=f"disposition_{data.action}",
+                     subject=hold.panel, details=details)
+        session.flush()
+        return _read(session, hold)
+
+
+def list_holds(*, db: Database, state: str | None = "open", limit: int = 500) -> HoldList:
+    """Holds ordered by severity (worst first), then by age (oldest first)."""
+    if state not in (None, "open", "closed"):
+        raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
+    with db.transaction() as session:
+        query = select(Hold)
+        if state:
+            query = query.where(Hold.state == state)
+        rows = session.scalars(
+            query.order_by(Hold.severity.desc(), Hold.held_at, Hold.panel).limit(limit)
+        ).all()
+        return HoldList(holds=[_read(session, h) for h in rows])

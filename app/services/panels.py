@@ -1,0 +1,236 @@
+"""Panels: registration, the stored state as read by engineers and supervisors, and lists."""
+
+from __future__ import annotations
+
+import base64
+import json
+from typing import Any
+
+from sqlalchemy import Select, and_, or_, select
+from sqlalchemy.orm import Session
+
+from app.db import Database
+from app.errors import Conflict, InvalidInput, NotFound
+from app.overlay.model import PER_MM_TO_MICRO
+from app.schemas.panels import (
+    FtbPoint,
+    FtbRead,
+    PanelCreate,
+    PanelPage,
+    PanelRead,
+    SidesInt,
+    StackLayerRead,
+    StackRead,
+)
+from app.services import audit, state
+from app.services.products import get_by_code_or_raise
+from app.store.tables import Lot, Panel, PanelState, Product, utcnow
+
+SORTS = {
+    "serial": (Panel.serial,),
+    "ftb": (PanelState.ftb_worst_um,),
+    "p_exceed": (PanelState.p_exceed,),
+    "updated": (PanelState.updated_at,),
+}
+
+
+def get_or_raise(session: Session, serial: str) -> Panel:
+    panel = session.get(Panel, serial)
+    if panel is None:
+        raise NotFound(f"no panel with serial '{serial}'")
+    return panel
+
+
+def _empty_state(panel: Panel, product: Product) -> PanelState:
+    """The state of a registered panel with no measurement yet."""
+    return PanelState(
+        panel=panel.serial, layers_a=[], layers_b=[], missing_a=[], missing_b=[],
+        ftb_worst_um=0.0, ftb_worst_x_mm=0.0, ftb_worst_y_mm=0.0, ftb_points=[],
+        l2l_worst_um=0.0, stack={}, forecast=None, p_exceed=None, risk="clear",
+        risk_rule="clear", reasons=["No measurement yet."], updated_at=utcnow(),
+    )
+
+
+def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelState) -> PanelRead:
+    return PanelRead(
+        serial=panel.serial,
+        product=product_code,
+        lot=lot_code,
+        status=panel.status,  # type: ignore[arg-type]
+        layers=SidesInt(A=st.layers_a, B=st.layers_b),
+        missing_layers=SidesInt(A=st.missing_a, B=st.missing_b),
+        ftb=FtbRead(
+            worst_um=st.ftb_worst_um,
+            worst_at_mm=(st.ftb_worst_x_mm, st.ftb_worst_y_mm),
+            points=[FtbPoint(**p) for p in st.ftb_points],
+        ),
+        l2l_worst_um=st.l2l_worst_um,
+        risk=st.risk,  # type: ignore[arg-type]
+        reasons=st.reasons,
+        forecast=st.forecast,  # type: ignore[arg-type]
+        updated_at=st.updated_at,
+    )
+
+
+def to_read(session: Session, panel: Panel) -> PanelRead:
+    product = session.get_one(Product, panel.product_id)
+    lot = session.get_one(Lot, panel.lot_id)
+    st = session.get(PanelState, panel.serial) or _empty_state(panel, product)
+    return read_model(panel, product.code, lot.code, st)
+
+
+def create(*, db: Database, data: PanelCreate, actor: str) -> tuple[bool, PanelRead]:
+    """Register a panel; returns (created, panel). An identical repeat is not an error."""
+    with db.transaction() as session:
+        product = get_by_code_or_raise(session, data.product)
+        lot = session.scalars(select(Lot).where(Lot.code == data.lot)).one_or_none()
+        if lot is not None and lot.product_id != product.id:
+            raise Conflict(f"lot '{data.lot}' belongs to another product")
+        existing = session.get(Panel, data.serial)
+        if existing is not None:
+            if existing.product_id != product.id or lot is None or existing.lot_id != lot.id:
+                raise Conflict(
+                    f"panel '{data.serial}' is already registered to another product or lot"
+                )
+            return False, to_read(session, existing)
+        if lot is None:
+            lot = Lot(code=data.lot, product_id=product.id)
+            session.add(lot)
+            session.flush()
+        panel = Panel(serial=data.serial, product_id=product.id, lot_id=lot.id)
+        session.add(panel)
+        session.flush()
+        audit.record(session, actor=actor, action="panel_register", subject=data.serial,
+                     details={"product": data.product, "lot": data.lot})
+        return True, to_read(session, panel)
+
+
+def get(*, db: Database, serial: str) -> PanelRead:
+    with db.transaction() as session:
+        return to_read(session, get_or_raise(session, serial))
+
+
+def _cursor_encode(values: list[Any]) -> str:
+    return base64.urlsafe_b64encode(json.dumps(values).encode()).decode()
+
+
+def _cursor_decode(cursor: str) -> list[Any]:
+    try:
+        values = json.loads(base64.urlsafe_b64decode(cursor.encode()))
+    except ValueError as exc:
+        raise InvalidInput("cursor is not one this service gave out") from exc
+    if not isinstance(values, list) or len(values) != 2:
+        raise InvalidInput("cursor is not one this service gave out")
+    return values
+
+
+def list_panels(
+    *,
+    db: Database,
+    product: str | None = None,
+    lot: str | None = None,
+    status: str | None = None,
+    risk: str | None = None,
+    sort: str = "serial",
+    descending: bool = False,
+    limit: int = 50,
+    cursor: str | None = None,
+) -> PanelPage:
+    """Filtered, sorted panels with keyset (cursor) pagination; ties broken by serial."""
+    if sort not in SORTS:
+        raise InvalidInput(f"sort must be one of {', '.join(SORTS)}, got '{sort}'")
+    (key,) = SORTS[sort]
+    with db.transaction() as session:
+        query: Select[Any] = (
+            select(Panel, Product.code, Lot.code, PanelState)
+            .join(Product, Product.id == Panel.product_id)
+            .join(Lot, Lot.id == Panel.lot_id)
+            .outerjoin(PanelState, PanelState.panel == Panel.serial)
+        )
+        if product:
+            query = query.where(Product.code == product)
+        if lot:
+            query = query.where(Lot.code == lot)
+        if status:
+            query = query.where(Panel.status == status)
+        if risk:
+            query = query.where(PanelState.risk == risk)
+        if sort != "serial":
+            query = query.where(key.is_not(None))
+        if cursor:
+            last_key, last_serial = _cursor_decode(cursor)
+            if sort == "updated":
+                from datetime import datetime
+
+                last_key = datetime.fromisoformat(last_key)
+            beyond = key < last_key if descending else key > last_key
+            tie = Panel.serial < last_serial if descending else Panel.serial > last_serial
+            query = query.where(or_(beyond, and_(key == last_key, tie)))
+        order = [key.desc(), Panel.serial.desc()] if descending else [key, Panel.serial]
+        rows = session.execute(query.order_by(*order).limit(limit + 1)).all()
+        items = []
+        for panel, product_code, lot_code, st in rows[:limit]:
+            prod = None if st is not None else session.get_one(Product, panel.product_id)
+            st = st or _empty_state(panel, prod)
+            items.append(read_model(panel, product_code, lot_code, st))
+        next_cursor = None
+        if len(rows) > limit:
+            last = rows[limit - 1]
+            value = {
+                "serial": last[0].serial,
+                "ftb": last[3].ftb_worst_um if last[3] else None,
+                "p_exceed": last[3].p_exceed if last[3] else None,
+                "updated": last[3].updated_at.isoformat() if last[3] else None,
+            }[sort]
+            next_cursor = _cursor_encode([value, last[0].serial])
+        return PanelPage(items=items, next_cursor=next_cursor)
+
+
+def stack(*, db: Database, serial: str) -> StackRead:
+    """Per side and layer: the fit in force, its L2L worst and the cumulative FTB worst."""
+    with db.transaction() as session:
+        panel = get_or_raise(session, serial)
+        st = session.get(PanelState, serial)
+        layers = state.current_layers(session, serial)
+        summary = st.stack if st is not None else {}
+        cumulative = summary.get("cumulative_worst_um", [])
+        out: list[StackLayerRead] = []
+        for side in ("A", "B"):
+            for k in sorted(layers[side]):
+                m, f = layers[side][k].measurement, layers[side][k].fit
+                out.append(StackLayerRead(
+                    side=side,  # type: ignore[arg-type]
+                    layer=k,
+                    measurement_id=str(m.id),
+                    tool=m.tool,
+                    measured_at=m.measured_at,
+                    model=f.model,
+                    note=f.note,
+                    tx_um=f.tx,
+                    ty_um=f.ty,
+                    sx_ppm=f.sx * PER_MM_TO_MICRO,
+                    sy_ppm=f.sy * PER_MM_TO_MICRO,
+                    rotation_urad=(f.ox + f.oy) / 2 * PER_MM_TO_MICRO,
+                    nonorthogonality_urad=(f.oy - f.ox) * PER_MM_TO_MICRO,
+                    kx_um_per_mm2=f.kx,
+                    ky_um_per_mm2=f.ky,
+                    sigma_x_um=f.sigma_x_um,
+                    sigma_y_um=f.sigma_y_um,
+                    l2l_worst_um=summary.get("l2l_worst_um", {}).get(side, {}).get(str(k), 0.0),
+                    cumulative_ftb_worst_um=_cumulative_at(cumulative, layers, side, k),
+                ))
+        return StackRead(
+            serial=panel.serial,
+            layers=out,
+            residual_sigma_um=tuple(summary.get("residual_sigma_um", (0.0, 0.0))),  # type: ignore[arg-type]
+            linear_worst_case_um=summary.get("linear_worst_case_um", 0.0),
+            rss_um=summary.get("rss_um", 0.0),
+        )
+
+
+def _cumulative_at(
+    cumulative: list[float], layers: dict[str, dict[int, Any]], side: str, k: int
+) -> float:
+    # cumulative[i] is the worst FTB over the first i+1 *present* layers of each side.
+    position = sorted(layers[side]).index(k)
+    return float(cumulative[position]) if position < len(cumulative) else 0.0

@@ -1,0 +1,218 @@
+"""The running estimate of one panel: rebuilt from its current fits (never from raw sites) in
+the same transaction as every accepted measurement.
+
+Order of work: current fits -> stack accumulation at the product's check points (core) ->
+forecast of the final FTB (core, with the product's history) -> risk (core) -> stored state.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from app.config import get_settings
+from app.overlay.forecast import Forecast, LayerHistory, forecast_final
+from app.overlay.resistance import resistance_ohm
+from app.overlay.risk import RiskAssessment, RiskThresholds, assess
+from app.overlay.stack import StackResult, accumulate
+from app.services.history import product_history
+from app.services.products import check_points
+from app.store.tables import Fit, Measurement, Panel, PanelState, Product, utcnow
+
+
+@dataclass(frozen=True)
+class CurrentLayer:
+    measurement: Measurement
+    fit: Fit
+
+    @property
+    def terms(self) -> np.ndarray:
+        f = self.fit
+        return np.array([f.tx, f.ty, f.sx, f.sy, f.ox, f.oy, f.kx, f.ky], dtype=np.float64)
+
+    @property
+    def residual_var(self) -> tuple[float, float]:
+        return (self.fit.sigma_x_um**2, self.fit.sigma_y_um**2)
+
+
+def current_layers(session: Session, serial: str) -> dict[str, dict[int, CurrentLayer]]:
+    """The measurement in force (not superseded) for each side and layer of a panel."""
+    rows = session.execute(
+        select(Measurement, Fit)
+        .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
+        .where(Measurement.panel == serial, Measurement.superseded_by.is_(None))
+    ).all()
+    layers: dict[str, dict[int, CurrentLayer]] = {"A": {}, "B": {}}
+    for measurement, fit in rows:
+        layers[measurement.side][measurement.layer] = CurrentLayer(measurement, fit)
+    return layers
+
+
+def _missing(present: list[int]) -> list[int]:
+    top = max(present, default=0)
+    return [k for k in range(1, top + 1) if k not in present]
+
+
+def _resistance(product: Product, ftb_worst_um: float) -> float | None:
+    """Resistance of the product's representative connection when the FTB misregistration
+    adds to its routed length: R = rho (L + dL) / (w t) (DOMAIN.md, resistance impact)."""
+    c = product.connection
+    if not c:
+        return None
+    return resistance_ohm(
+        (c["length_um"] + ftb_worst_um) * 1e-6,
+        c["width_um"] * 1e-6,
+        c["thickness_um"] * 1e-6,
+        rho_ohm_m=c.get("resistivity_ohm_m", 1.68e-8),
+    )
+
+
+def _forecast(
+    product: Product,
+    layers: dict[str, dict[int, CurrentLayer]],
+    stack: StackResult,
+    histories: tuple[LayerHistory, LayerHistory],
+    seed: int,
+) -> Forecast:
+    observed = {s: {k: cl.terms for k, cl in layers[s].items()} for s in ("A", "B")}
+    n_obs = len(layers["A"]) + len(layers["B"])
+    # Residual scatter at a point: what the observed layers showed, plus the same average
+    # per-layer variance for every layer still to come (scatter adds in variance).
+    var = np.array([0.0, 0.0])
+    for s in ("A", "B"):
+        for cl in layers[s].values():
+            var += cl.residual_var
+    if n_obs:
+        var += (2 * product.layers_per_side - n_obs) * var / n_obs
+    return forecast_final(
+        observed_a=observed["A"],
+        observed_b=observed["B"],
+        history_a=histories[0],
+        history_b=histories[1],
+        layers_per_side=product.layers_per_side,
+        points_mm=check_points(product),
+        ftb_limit_um=product.ftb_limit_um,
+        point_sigma_um=(float(np.sqrt(var[0])), float(np.sqrt(var[1]))),
+        n_samples=get_settings().forecast_samples,
+        seed=seed,
+    )
+
+
+def _seed(serial: str) -> int:
+    # A stable per-panel seed, so the same data always gives the same p_exceed.
+    return int.from_bytes(serial.encode("utf-8")[-8:].rjust(8, b"\0"), "big") % (2**32)
+
+
+def _stack_summary(
+    layers: dict[str, dict[int, CurrentLayer]], stack: StackResult
+) -> dict[str, Any]:
+    order = {s: sorted(layers[s]) for s in ("A", "B")}
+    return {
+        "l2l_worst_um": {
+            "A": {str(k): float(v) for k, v in zip(order["A"], stack.l2l_worst_a_um, strict=True)},
+            "B": {str(k): float(v) for k, v in zip(order["B"], stack.l2l_worst_b_um, strict=True)},
+        },
+        "cumulative_worst_um": [float(v) for v in stack.cumulative_worst_um],
+        "residual_sigma_um": list(stack.residual_sigma_um),
+        "linear_worst_case_um": stack.linear_worst_case_um,
+        "rss_um": stack.rss_um,
+    }
+
+
+def refresh(
+    session: Session,
+    *,
+    panel: Panel,
+    product: Product,
+    histories: tuple[LayerHistory, LayerHistory] | None = None,
+) -> tuple[PanelState, RiskAssessment]:
+    """Recompute and store the panel's state; returns it with the risk assessment."""
+    layers = current_layers(session, panel.serial)
+    order = {s: sorted(layers[s]) for s in ("A", "B")}
+
+    def stacked(side: str) -> tuple[np.ndarray, np.ndarray]:
+        terms = [layers[side][k].terms for k in order[side]]
+        var = [layers[side][k].residual_var for k in order[side]]
+        return np.array(terms).reshape(-1, 8), np.array(var, dtype=np.float64).reshape(-1, 2)
+
+    terms_a, var_a = stacked("A")
+    terms_b, var_b = stacked("B")
+    points = check_points(product)
+    stack = accumulate(
+        terms_a, terms_b, points, residual_var_a=var_a, residual_var_b=var_b
+    )
+    if histories is None:
+        histories = product_history(session, product=product)
+    forecast = _forecast(product, layers, stack, histories, _seed(panel.serial))
+    l2l = {
+        "A": dict(zip(order["A"], map(float, stack.l2l_worst_a_um), strict=True)),
+        "B": dict(zip(order["B"], map(float, stack.l2l_worst_b_um), strict=True)),
+    }
+    resistance = _resistance(product, stack.worst_um)
+    assessment = assess(
+        ftb_worst_um=stack.worst_um,
+        ftb_worst_at_mm=stack.worst_at_mm,
+        l2l_worst_a_um=l2l["A"],
+        l2l_worst_b_um=l2l["B"],
+        forecast=forecast,
+        thresholds=RiskThresholds(
+            ftb_limit_um=product.ftb_limit_um,
+            l2l_limit_um=product.l2l_limit_um,
+            p_watch=product.p_watch,
+            p_at_risk=product.p_at_risk,
+            resistance_limit_ohm=(product.connection or {}).get("resistance_limit_ohm"),
+        ),
+        resistance_ohm=resistance,
+    )
+    points_out = [
+        {
+            "x_mm": float(p[0]),
+            "y_mm": float(p[1]),
+            "dx_um": float(v[0]),
+            "dy_um": float(v[1]),
+            "length_um": float(n),
+        }
+        for p, v, n in zip(points, stack.ftb_um, stack.ftb_length_um, strict=True)
+    ]
+    values: dict[str, Any] = {
+        "layers_a": order["A"],
+        "layers_b": order["B"],
+        "missing_a": _missing(order["A"]),
+        "missing_b": _missing(order["B"]),
+        "ftb_worst_um": float(stack.worst_um),
+        "ftb_worst_x_mm": float(stack.worst_at_mm[0]),
+        "ftb_worst_y_mm": float(stack.worst_at_mm[1]),
+        "ftb_points": points_out,
+        "l2l_worst_um": float(max([*l2l["A"].values(), *l2l["B"].values()], default=0.0)),
+        "stack": {**_stack_summary(layers, stack), "resistance_ohm": resistance},
+        "forecast": {
+            "final_worst_um": forecast.final_worst_um,
+            "band_um": list(forecast.band_um),
+            "p_exceed": forecast.p_exceed,
+            "remaining": {
+                "A": list(forecast.trend_a.remaining_layers),
+                "B": list(forecast.trend_b.remaining_layers),
+            },
+            "method": forecast.method,
+        },
+        "p_exceed": forecast.p_exceed,
+        "risk": assessment.level,
+        "risk_rule": assessment.rule,
+        "reasons": list(assessment.reasons),
+        "updated_at": utcnow(),
+    }
+    state = session.get(PanelState, panel.serial)
+    if state is None:
+        state = PanelState(panel=panel.serial, **values)
+        session.add(state)
+    else:
+        for k, v in values.items():
+            setattr(state, k, v)
+    full = product.layers_per_side
+    if panel.status == "in_process" and len(order["A"]) == full and len(order["B"]) == full:
+        panel.status = "complete"
+    return state, assessment
