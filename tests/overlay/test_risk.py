@@ -1,0 +1,238 @@
+"""Risk levels, deciding rules and the reasons given for them."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from app.overlay.errors import OverlayInputError
+from app.overlay.forecast import Forecast, SideTrend
+from app.overlay.probability import WorstPointExceedance
+from app.overlay.risk import RISK_LEVELS, RULES, RiskThresholds, assess, severity
+
+LIMITS = RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0)
+
+
+def trend(
+    drift: tuple[float, float],
+    observed: int = 6,
+    layers: int = 12,
+    expected: tuple[float, float] = (1.0, 0.0),
+    missing: tuple[int, ...] = (),
+) -> SideTrend:
+    observed_layers = tuple(k for k in range(1, observed + 1 + len(missing)) if k not in missing)
+    remaining = tuple(k for k in range(1, layers + 1) if k not in observed_layers)
+    return SideTrend(
+        observed_layers=observed_layers,
+        remaining_layers=remaining,
+        offset_mean=np.zeros(8),
+        offset_cov=np.eye(8),
+        weight=0.33,
+        per_layer_um=expected,
+        observed_per_layer_um=drift,
+        remaining_mean=np.zeros(8),
+        remaining_cov=np.eye(8),
+    )
+
+
+def forecast(
+    p: float,
+    final: float = 67.0,
+    band: tuple[float, float] = (38.0, 96.0),
+    trend_a: SideTrend | None = None,
+    trend_b: SideTrend | None = None,
+) -> Forecast:
+    a = trend_a if trend_a is not None else trend((3.0, 0.0))
+    b = trend_b if trend_b is not None else trend((-3.0, 0.0), expected=(-1.0, 0.0))
+    exceedance = WorstPointExceedance(
+        p_exceed=p,
+        stderr=0.01,
+        n_samples=4000,
+        worst_mean_um=final,
+        worst_band_um=band,
+        seed=0,
+    )
+    return Forecast(
+        trend_a=a,
+        trend_b=b,
+        current_terms=np.zeros(8),
+        final_mean_terms=np.zeros(8),
+        final_cov_terms=np.eye(8),
+        exceedance=exceedance,
+        final_worst_um=final,
+        band_um=band,
+        p_exceed=p,
+        method="test",
+        complete=not a.remaining_layers and not b.remaining_layers,
+    )
+
+
+def run(
+    ftb: float = 10.0,
+    fc: Forecast | None = None,
+    l2l_a: dict[int, float] | None = None,
+    l2l_b: dict[int, float] | None = None,
+    thresholds: RiskThresholds = LIMITS,
+    resistance: float | None = None,
+):
+    return assess(
+        ftb_worst_um=ftb,
+        ftb_worst_at_mm=(229.5, -231.8),
+        l2l_worst_a_um=l2l_a if l2l_a is not None else {1: 4.0, 2: 5.0},
+        l2l_worst_b_um=l2l_b if l2l_b is not None else {1: 3.0},
+        forecast=fc,
+        thresholds=thresholds,
+        resistance_ohm=resistance,
+    )
+
+
+def test_levels_are_ordered_by_severity() -> None:
+    assert [severity(level) for level in RISK_LEVELS] == [0, 1, 2, 3]
+    assert {level for _, level in RULES} == set(RISK_LEVELS)
+    with pytest.raises(OverlayInputError):
+        severity("hold")
+
+
+# reference for the rule table: DOMAIN.md, forecast and risk, and the product's limits;
+# the 70 % watch fraction and the 0.05 / 0.20 probabilities are common practice (product
+# settings).
+@pytest.mark.parametrize(
+    ("p", "level", "rule"),
+    [
+        (0.0, "clear", "clear"),
+        (0.049, "clear", "clear"),
+        (0.05, "watch", "p_exceed_watch"),
+        (0.19, "watch", "p_exceed_watch"),
+        (0.20, "at_risk", "p_exceed_at_risk"),
+        (0.9, "at_risk", "p_exceed_at_risk"),
+    ],
+)
+def test_probability_rules(p: float, level: str, rule: str) -> None:
+    result = run(fc=forecast(p))
+    assert (result.level, result.rule) == (level, rule)
+    assert result.reasons
+    assert f"P(exceed) = {p:.2f}" in " ".join(result.reasons)
+
+
+@pytest.mark.parametrize(
+    ("ftb", "level", "rule"),
+    [
+        (41.9, "clear", "clear"),
+        (42.0, "watch", "ftb_near_limit"),  # 70 % of 60 um
+        (60.0, "watch", "ftb_near_limit"),  # at the limit is not over it
+        (60.1, "over_limit", "ftb_over_limit"),
+    ],
+)
+def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
+    # reference: common practice (watch from 70 % of a limit); DOMAIN.md (FTB limit)
+    result = run(ftb=ftb, fc=forecast(0.01))
+    assert (result.level, result.rule) == (level, rule)
+    text = " ".join(result.reasons)
+    assert f"{ftb:.1f} um" in text
+    assert "60 um" in text
+    if rule == "ftb_near_limit":
+        assert "70%" in text
+        assert "(229.5, -231.8) mm" in text
+
+
+def test_watch_fraction_is_a_setting() -> None:
+    loose = RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, watch_fraction=0.8)
+    assert run(ftb=45.0, thresholds=loose).level == "clear"
+    assert run(ftb=48.0, thresholds=loose).rule == "ftb_near_limit"
+
+
+def test_l2l_over_limit_on_either_side() -> None:
+    # reference: DOMAIN.md (L2L limit per layer)
+    result = run(l2l_a={1: 4.0, 4: 13.2}, l2l_b={2: 12.5})
+    assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
+    assert any("Side A layer 4" in r and "13.2 um" in r and "12 um" in r for r in result.reasons)
+    assert any("Side B layer 2" in r and "12.5 um" in r for r in result.reasons)
+    assert run(l2l_a={1: 12.0}).level == "clear"  # at the limit is within it
+
+
+def test_resistance_over_limit() -> None:
+    # reference: DOMAIN.md, resistance impact (a product limit on the connection)
+    limits = RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, resistance_limit_ohm=0.015)
+    result = run(thresholds=limits, resistance=0.0162)
+    assert (result.level, result.rule) == ("over_limit", "resistance_over_limit")
+    assert "0.0162 ohm" in result.reasons[0]
+    assert "0.015 ohm" in result.reasons[0]
+    assert run(thresholds=limits, resistance=0.0149).level == "clear"
+    assert run(resistance=1.0).level == "clear"  # no limit set: no rule
+
+
+def test_reasons_carry_the_figures() -> None:
+    result = run(ftb=36.0, fc=forecast(0.64))
+    assert (result.level, result.rule) == ("at_risk", "p_exceed_at_risk")
+    side_a = next(r for r in result.reasons if r.startswith("Side A"))
+    side_b = next(r for r in result.reasons if r.startswith("Side B"))
+    for sentence, direction in ((side_a, "+x"), (side_b, "-x")):
+        assert "3.0 um/layer" in sentence
+        assert f"toward {direction}" in sentence
+        assert "6 layers" in sentence
+        assert "1.0 um/layer" in sentence  # what each remaining layer is expected to add
+    projection = result.reasons[-1]
+    assert "6 layers remain on each side" in projection
+    assert "67 um" in projection
+    assert "95% band 38-96 um" in projection
+    assert "limit of 60 um" in projection
+    assert "P(exceed) = 0.64" in projection
+
+
+def test_direction_off_axis_and_no_drift() -> None:
+    fc = forecast(0.3, trend_a=trend((2.0, 2.0)), trend_b=trend((0.0, 0.0), expected=(0.0, 0.0)))
+    text = " ".join(run(fc=fc).reasons)
+    assert "2.8 um/layer toward 45 deg from +x" in text
+    assert "Side B shows no net drift" in text
+    fc = forecast(0.3, trend_a=trend((0.1, -2.5)))
+    assert "toward -y" in " ".join(run(fc=fc).reasons)
+
+
+def test_missing_and_uneven_remaining_layers_are_named() -> None:
+    fc = forecast(0.3, trend_a=trend((3.0, 0.0), observed=5, missing=(3,)), trend_b=trend((0, 0)))
+    projection = run(fc=fc).reasons[-1]
+    assert "7 layers remain on side A and 6 on side B" in projection
+    assert "side A layer 3" in projection
+
+
+def test_every_cause_is_listed() -> None:
+    result = run(ftb=45.0, fc=forecast(0.64), l2l_b={5: 14.0})
+    assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
+    text = " ".join(result.reasons)
+    assert "Side B layer 5" in text  # the L2L cause
+    assert "Side A drifts 3.0 um/layer toward +x" in text  # the drift cause
+    assert "P(exceed) = 0.64" in text  # the forecast
+    assert "75% of the 60 um limit" in text  # the near-limit cause
+
+
+def test_no_forecast_and_complete_stack() -> None:
+    result = run(ftb=12.0)
+    assert result.level == "clear"
+    assert "no forecast" in result.reasons[0]
+    done = trend((3.0, 0.0), observed=12)
+    fc = forecast(1.0, final=72.0, band=(72.0, 72.0), trend_a=done, trend_b=done)
+    result = run(ftb=72.0, fc=fc)
+    assert (result.level, result.rule) == ("over_limit", "ftb_over_limit")
+    assert any("complete" in r and "72.0 um" in r for r in result.reasons)
+
+
+@pytest.mark.parametrize(
+    "kwargs",
+    [
+        {"ftb_limit_um": 0.0, "l2l_limit_um": 12.0},
+        {"ftb_limit_um": 60.0, "l2l_limit_um": float("nan")},
+        {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "p_watch": 0.3, "p_at_risk": 0.2},
+        {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "watch_fraction": 1.5},
+        {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "resistance_limit_ohm": -1.0},
+    ],
+)
+def test_bad_thresholds_are_refused(kwargs: dict[str, float]) -> None:
+    with pytest.raises(OverlayInputError):
+        RiskThresholds(**kwargs)
+
+
+def test_bad_figures_are_refused() -> None:
+    with pytest.raises(OverlayInputError):
+        run(ftb=float("nan"))
+    with pytest.raises(OverlayInputError):
+        run(l2l_a={1: float("inf")})
