@@ -15,7 +15,8 @@ demo: $(BIN)/.installed
 	$(BIN)/stackledger demo
 
 test: $(BIN)/.installed
-	$(BIN)/python -m pytest -q
+	@$(BIN)/python -m pytest -q; rc=$$?; \
+	if [ $$rc -eq 5 ]; then echo "pytest collected no tests: that is a failure"; fi; exit $$rc
 
 lint: $(BIN)/.installed
 	$(BIN)/ruff check .

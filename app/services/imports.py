@@ -165,7 +165,7 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
     limit = settings.max_abs_displacement_um
     flag(length > limit, "dx_um",
          lambda i: f"displacement of {length[i]:.1f} um is over {limit:.0f} um (1 mm)")
-    known = df["panel"].map(lambda s: run.panels.get(s) is not None).to_numpy(dtype=bool)
+    known = df["panel"].isin([s for s, e in run.panels.items() if e is not None]).to_numpy()
     flag(~known, "panel", lambda i: f"panel '{df['panel'].iat[i]}' is not registered")
     df["row"] = rows
     df["ok"] = ~bad
@@ -173,42 +173,54 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
 
 
 def _group_checks(df: pd.DataFrame, run: _Run) -> None:
-    """Checks over each measurement's rows: product limits, site count, duplicates, order."""
+    """Checks over each measurement's rows (product limits, site count, duplicate sites, rows
+    kept together), vectorised over the chunk: one Python step per measurement at most."""
     settings = get_settings()
-    for gid, g in df.groupby("group", sort=False):
-        row0 = int(g["row"].iat[0])
-        key = tuple(g[KEY].iloc[0])
+    starts, counts = _bounds(df)
+    rows = df["row"].to_numpy()
+    heads = df.iloc[starts]
+    entries = [run.panels.get(serial) for serial in heads["panel"]]
+    for j, key in enumerate(heads[KEY].itertuples(index=False, name=None)):
         if key in run.seen_keys:
-            run.error(row0, "panel", "rows of this measurement appear earlier in the file, "
-                      "not next to these; keep a measurement's rows together")
+            run.error(int(rows[starts[j]]), "panel", "rows of this measurement appear earlier "
+                      "in the file, not next to these; keep a measurement's rows together")
         run.seen_keys.add(key)
-        entry = run.panels.get(key[0])
+        entry = entries[j]
         if entry is None:
             continue
-        product = entry[1]
-        layer = int(g["layer"].iat[0])
+        product, layer = entry[1], int(key[1])
         if not 1 <= layer <= product.layers_per_side:
-            run.error(row0, "layer", f"layer must be 1..{product.layers_per_side} for product "
-                      f"'{product.code}', got {layer}")
-        if len(g) > settings.max_sites_per_measurement:
-            run.error(row0, None, f"{len(g)} sites in one measurement; at most "
-                      f"{settings.max_sites_per_measurement} are accepted")
-        x, y = g["x_mm"].to_numpy(), g["y_mm"].to_numpy()
-        outside = (np.abs(x) > product.panel_width_mm / 2) | (np.abs(y) > product.panel_height_mm / 2)
-        for i in np.flatnonzero(outside)[:5]:
-            run.error(int(g["row"].iat[i]), "x_mm", f"site ({x[i]}, {y[i]}) mm lies outside the "
-                      "panel (coordinates are about the panel centre)")
-        dup = g.duplicated(subset=["x_mm", "y_mm"]).to_numpy()
-        for i in np.flatnonzero(dup)[:5]:
-            run.error(int(g["row"].iat[i]), "x_mm",
-                      f"site ({x[i]}, {y[i]}) mm appears more than once in the measurement")
-        del gid
+            run.error(int(rows[starts[j]]), "layer", f"layer must be 1..{product.layers_per_side}"
+                      f" for product '{product.code}', got {layer}")
+        if counts[j] > settings.max_sites_per_measurement:
+            run.error(int(rows[starts[j]]), None, f"{counts[j]} sites in one measurement; at "
+                      f"most {settings.max_sites_per_measurement} are accepted")
+    half = np.array([(e[1].panel_width_mm / 2, e[1].panel_height_mm / 2) if e else (np.inf,) * 2
+                     for e in entries]).reshape(-1, 2)
+    half_rows = np.repeat(half, counts, axis=0)
+    x, y = df["x_mm"].to_numpy(), df["y_mm"].to_numpy()
+    for i in np.flatnonzero((np.abs(x) > half_rows[:, 0]) | (np.abs(y) > half_rows[:, 1]))[:20]:
+        run.error(int(rows[i]), "x_mm", f"site ({x[i]}, {y[i]}) mm lies outside the panel "
+                  "(coordinates are about the panel centre)")
+    group = np.repeat(np.arange(len(starts)), counts)
+    order = np.lexsort((y, x, group))
+    same = ((group[order][1:] == group[order][:-1]) & (x[order][1:] == x[order][:-1])
+            & (y[order][1:] == y[order][:-1]))
+    for i in np.sort(order[1:][same])[:20]:
+        run.error(int(rows[i]), "x_mm",
+                  f"site ({x[i]}, {y[i]}) mm appears more than once in the measurement")
+
+
+def _bounds(df: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """First row and row count of each measurement (consecutive rows of one group)."""
+    group = df["group"].to_numpy()
+    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
+    return starts, np.diff(np.r_[starts, len(df)])
 
 
 def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
     """Fit and store the chunk's measurements (only called while the file has no error)."""
-    starts = np.flatnonzero(np.r_[True, df["group"].to_numpy()[1:] != df["group"].to_numpy()[:-1]])
-    counts = np.diff(np.r_[starts, len(df)])
+    starts, counts = _bounds(df)
     x, y = df["x_mm"].to_numpy(), df["y_mm"].to_numpy()
     dx, dy = df["dx_um"].to_numpy(), df["dy_um"].to_numpy()
     px, py, pdx, pdy = x.copy(), y.copy(), dx.copy(), dy.copy()
@@ -270,8 +282,11 @@ def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
 
 
 def _assign_groups(df: pd.DataFrame, run: _Run) -> pd.DataFrame:
-    keys = df[KEY].astype(str).agg("\x1f".join, axis=1).to_numpy()
-    change = np.r_[True, keys[1:] != keys[:-1]]
+    change = np.zeros(len(df), dtype=bool)
+    change[0] = True
+    for column in KEY:
+        values = df[column].to_numpy()
+        change[1:] |= values[1:] != values[:-1]
     df["group"] = np.cumsum(change)
     return df
 
@@ -289,6 +304,8 @@ def import_csv(
         carry: pd.DataFrame | None = None
         next_row = 1
         for chunk in _chunks(text, names, settings.import_chunk_rows):
+            if not len(chunk):
+                continue
             chunk = chunk[list(COLUMNS)]
             _load_panels(session, run, chunk["panel"].unique().tolist())
             chunk = _row_checks(chunk, run, next_row)
@@ -332,12 +349,14 @@ def _process(session: Session, df: pd.DataFrame, run: _Run) -> None:
 
 def _refresh_touched(session: Session, run: _Run) -> None:
     histories: dict[int, Any] = {}
-    for serial in sorted(run.touched):
+    serials = sorted(run.touched)
+    layers = state.current_layers_many(session, serials)
+    for serial in serials:
         panel, product = run.panels[serial]  # type: ignore[misc]
         if product.id not in histories:
             histories[product.id] = learn(session, product=product)
         st, assessment = state.refresh(session, panel=panel, product=product,
-                                       histories=histories[product.id])
+                                       histories=histories[product.id], layers=layers[serial])
         holds.apply_automatic(session, panel=panel, state=st, assessment=assessment)
 
 

@@ -39,17 +39,28 @@ class CurrentLayer:
         return (self.fit.sigma_x_um**2, self.fit.sigma_y_um**2)
 
 
-def current_layers(session: Session, serial: str) -> dict[str, dict[int, CurrentLayer]]:
-    """The measurement in force (not superseded) for each side and layer of a panel."""
-    rows = session.execute(
-        select(Measurement, Fit)
-        .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
-        .where(Measurement.panel == serial, Measurement.superseded_by.is_(None))
-    ).all()
-    layers: dict[str, dict[int, CurrentLayer]] = {"A": {}, "B": {}}
-    for measurement, fit in rows:
-        layers[measurement.side][measurement.layer] = CurrentLayer(measurement, fit)
-    return layers
+Layers = dict[str, dict[int, CurrentLayer]]
+
+
+def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layers]:
+    """The measurement in force (not superseded) for each side and layer of each panel."""
+    out: dict[str, Layers] = {s: {"A": {}, "B": {}} for s in serials}
+    for start in range(0, len(serials), 500):
+        rows = session.execute(
+            select(Measurement, Fit)
+            .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
+            .where(Measurement.panel.in_(serials[start:start + 500]),
+                   Measurement.superseded_by.is_(None))
+        ).all()
+        for measurement, fit in rows:
+            out[measurement.panel][measurement.side][measurement.layer] = CurrentLayer(
+                measurement, fit)
+    return out
+
+
+def current_layers(session: Session, serial: str) -> Layers:
+    """The measurement in force for each side and layer of one panel."""
+    return current_layers_many(session, [serial])[serial]
 
 
 def _missing(present: list[int]) -> list[int]:
@@ -129,9 +140,14 @@ def refresh(
     panel: Panel,
     product: Product,
     histories: tuple[LayerHistory, LayerHistory] | None = None,
+    layers: Layers | None = None,
 ) -> tuple[PanelState, RiskAssessment]:
-    """Recompute and store the panel's state; returns it with the risk assessment."""
-    layers = current_layers(session, panel.serial)
+    """Recompute and store the panel's state; returns it with the risk assessment.
+
+    ``histories`` and ``layers`` may be given by a caller that loaded them for many panels.
+    """
+    if layers is None:
+        layers = current_layers(session, panel.serial)
     order = {s: sorted(layers[s]) for s in ("A", "B")}
 
     def stacked(side: str) -> tuple[np.ndarray, np.ndarray]:

@@ -1,0 +1,75 @@
+"""Load the demo scenario (sample_data/) into a fresh SQLite file through the services, the
+same way a fab would: products, then panels, then the metrology CSV."""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+from rich.console import Console
+from sqlalchemy import select
+
+from app.db import Database
+from app.reports import print_closest, print_holds
+from app.schemas.panels import PanelCreate
+from app.schemas.products import ProductCreate
+from app.services import holds, keys, panels, products
+from app.services.history import forget
+from app.store.migrate import upgrade
+from app.store.tables import Product
+
+SAMPLE_DATA = Path(__file__).resolve().parents[2] / "sample_data"
+DEMO_ROLES = ("tool", "engineer", "supervisor", "admin")
+
+
+def load_into(db: Database, *, console: Console | None = None,
+              progress_console: Console | None = None) -> dict[str, str]:
+    """Load sample_data/ into ``db`` (already migrated); returns a demo key per role."""
+    from app.cli import import_file
+
+    forget()
+    for item in json.loads((SAMPLE_DATA / "products.json").read_text(encoding="utf-8")):
+        products.create(db=db, data=ProductCreate(**item), actor="demo")
+    with (SAMPLE_DATA / "panels.csv").open(encoding="utf-8", newline="") as f:
+        for row in csv.DictReader(f):
+            panels.create(db=db, data=PanelCreate(**row), actor="demo")
+    import_file(db, SAMPLE_DATA / "measurements.csv", label="demo metrology")
+    return {role: keys.create(db=db, role=role, label=f"demo {role}")[0] for role in DEMO_ROLES}
+
+
+def closest_to_limit(db: Database, n: int = 15) -> list[tuple[object, float]]:
+    with db.transaction() as session:
+        limits = {p.code: p.ftb_limit_um for p in session.scalars(select(Product))}
+    page = panels.list_panels(db=db, limit=500)
+    items = list(page.items)
+    while page.next_cursor:
+        page = panels.list_panels(db=db, limit=500, cursor=page.next_cursor)
+        items += page.items
+
+    def closeness(p: object) -> float:
+        f = p.forecast  # type: ignore[attr-defined]
+        ratio = p.ftb.worst_um / limits[p.product]  # type: ignore[attr-defined]
+        return max(ratio, f.p_exceed if f else 0.0)
+
+    items.sort(key=closeness, reverse=True)
+    return [(p, limits[p.product]) for p in items[:n]]
+
+
+def load_demo(path: Path, *, console: Console, progress_console: Console) -> str:
+    """Create ``path`` afresh, load the scenario, print the report; returns the database URL."""
+    for suffix in ("", "-wal", "-shm"):
+        Path(str(path) + suffix).unlink(missing_ok=True)
+    url = f"sqlite:///{path.resolve()}"
+    db = Database(url)
+    try:
+        upgrade(db.engine)
+        demo_keys = load_into(db, console=console, progress_console=progress_console)
+        print_closest(console, closest_to_limit(db), "Panels closest to their FTB limit")
+        print_holds(console, holds.list_holds(db=db, state="open"))
+        console.print("\nDemo keys (use as 'Authorization: Bearer <key>'):")
+        for role, key in demo_keys.items():
+            console.print(f"  {role:<10} {key}")
+    finally:
+        db.dispose()
+    return url

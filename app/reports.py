@@ -1,0 +1,66 @@
+"""Terminal reports (rich): one panel, the panels closest to their limit, the hold list."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.table import Table
+
+from app.schemas.holds import CAUTION, HoldList
+from app.schemas.panels import PanelRead
+
+RISK_STYLE = {"clear": "green", "watch": "yellow", "at_risk": "bold red",
+              "over_limit": "bold white on red"}
+
+
+def _p(value: float | None) -> str:
+    return "-" if value is None else f"{value:.2f}"
+
+
+def print_panel(console: Console, p: PanelRead) -> None:
+    console.print(f"[bold]{p.serial}[/bold]  product {p.product}  lot {p.lot}  "
+                  f"status {p.status}  risk [{RISK_STYLE[p.risk]}]{p.risk}[/]")
+    console.print(f"layers A {p.layers.A or '-'}  B {p.layers.B or '-'}"
+                  f"{'  missing A ' + str(p.missing_layers.A) if p.missing_layers.A else ''}"
+                  f"{'  missing B ' + str(p.missing_layers.B) if p.missing_layers.B else ''}")
+    console.print(f"FTB worst {p.ftb.worst_um:.1f} um at {p.ftb.worst_at_mm} mm; "
+                  f"L2L worst {p.l2l_worst_um:.1f} um")
+    if p.forecast:
+        f = p.forecast
+        console.print(f"forecast final worst {f.final_worst_um:.1f} um (95 % band "
+                      f"{f.band_um[0]:.1f}-{f.band_um[1]:.1f}), P(exceed) {f.p_exceed:.2f}")
+    for r in p.reasons:
+        console.print(f"  - {r}")
+
+
+def print_closest(console: Console, panels: list[tuple[PanelRead, float]], title: str) -> None:
+    table = Table(title=title)
+    for col in ("panel", "lot", "product", "layers A/B", "FTB now um", "limit um",
+                "forecast um", "P(exceed)", "risk"):
+        table.add_column(col, justify="right" if "um" in col or "P(" in col else "left")
+    for p, limit in panels:
+        table.add_row(
+            p.serial, p.lot, p.product,
+            f"{max(p.layers.A, default=0)}/{max(p.layers.B, default=0)}",
+            f"{p.ftb.worst_um:.1f}", f"{limit:.0f}",
+            f"{p.forecast.final_worst_um:.1f}" if p.forecast else "-",
+            _p(p.forecast.p_exceed if p.forecast else None),
+            f"[{RISK_STYLE[p.risk]}]{p.risk}[/]",
+        )
+    console.print(table)
+
+
+def print_holds(console: Console, hold_list: HoldList) -> None:
+    table = Table(title=f"Open holds: {len(hold_list.holds)}", show_lines=True)
+    for col in ("risk", "panel", "lot", "layers A/B", "FTB now", "forecast", "P(exc)",
+                "held since", "by", "reason"):
+        table.add_column(col, overflow="fold")
+    for h in hold_list.holds:
+        table.add_row(
+            f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel, h.lot,
+            f"{h.layers_reached.get('A', 0)}/{h.layers_reached.get('B', 0)}",
+            f"{h.ftb_now_um:.1f}", "-" if h.forecast_final_um is None else
+            f"{h.forecast_final_um:.1f}", _p(h.p_exceed),
+            h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by, h.reason,
+        )
+    console.print(table)
+    console.print(f"[italic]{CAUTION}[/italic]")
