@@ -29,7 +29,7 @@ FLIP_AXES: Final = ("x", "y")
 # dx' = -dx, x' = -x  =>  dx' = -Tx + Sx x' + Ox y' + Kx x'y'  (Tx, Ox flip; Sx, Kx kept)
 # dy' =  dy          =>  dy' =  Ty + Sy y' - Oy x' - Ky x'y'  (Oy, Ky flip; Ty, Sy kept)
 # and the same with the roles of x and y exchanged for a flip about x.
-_TERM_SIGNS: Final = {
+_TERM_SIGNS: Final[dict[str, FloatArray]] = {
     "y": np.array([-1.0, 1.0, 1.0, 1.0, -1.0, -1.0, 1.0, -1.0]),
     "x": np.array([1.0, -1.0, 1.0, 1.0, -1.0, -1.0, -1.0, 1.0]),
 }

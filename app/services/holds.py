@@ -119,7 +119,7 @@ def _read(session: Session, hold: Hold) -> HoldRead:
 def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) -> HoldRead:
     """A manual hold by an engineer (or above)."""
     with db.transaction() as session:
-        panel = session.get(Panel, serial)
+        panel = session.get(Panel, serial, with_for_update=True)
         if panel is None:
             raise NotFound(f"no panel with serial '{serial}'")
         if panel.status == "scrapped":
@@ -165,7 +165,10 @@ def dispose(
             raise NotFound(f"no hold with id '{hold_id}'")
         if hold.state != "open":
             raise Conflict(f"hold '{hold_id}' was already closed ({hold.disposition})")
-        panel = session.get_one(Panel, hold.panel)
+        panel = session.get_one(Panel, hold.panel, with_for_update=True)
+        session.refresh(hold)
+        if hold.state != "open":
+            raise Conflict(f"hold '{hold_id}' was closed meanwhile ({hold.disposition})")
         state = session.get(PanelState, hold.panel)
         figures = _figures(state) if state else {}
         hold.state = "closed"

@@ -117,7 +117,7 @@ def _load_panels(session: Session, run: _Run, serials: list[str]) -> None:
         part = new[start:start + 500]
         rows = session.execute(
             select(Panel, Product).join(Product, Product.id == Panel.product_id)
-            .where(Panel.serial.in_(part))
+            .where(Panel.serial.in_(part)).with_for_update(of=Panel)
         ).all()
         found = {p.serial: (p, prod) for p, prod in rows}
         current = session.execute(

@@ -109,7 +109,9 @@ def accept(
                         "body; use a new key for a new measurement"
                     )
                 return 200, record.response
-        panel = session.get(Panel, data.panel)
+        # The row lock serialises writers of one panel (PostgreSQL), so that each rebuilt state
+        # sees every fit committed before it; SQLite's BEGIN IMMEDIATE already serialises.
+        panel = session.get(Panel, data.panel, with_for_update=True)
         if panel is None:
             raise InvalidInput(
                 f"panel '{data.panel}' is not registered; register it first with "

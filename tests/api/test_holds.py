@@ -1,0 +1,206 @@
+"""Holds and disposition: automatic holds, the re-hold rule, roles, audit, order, CSV."""
+
+from __future__ import annotations
+
+import csv
+import io
+
+import pytest
+
+from app.schemas.holds import CAUTION
+from app.services import audit
+from app.services.hold_list import safe_cell
+from tests.factories import client, make_keys, make_panel, make_product, measurement
+
+
+@pytest.fixture
+def setup(db):
+    make_product(db)  # 12 + 12 layers, FTB limit 60 um, L2L limit 12 um, no history
+    return db, client(db), make_keys(db)
+
+
+def _post(c, k, serial, layer, side, tx, **kw):
+    r = c.post("/api/v1/measurements",
+               json=measurement(serial, layer, side, (tx,), frame="panel", **kw),
+               headers=k.headers("tool"))
+    assert r.status_code == 201, r.text
+    return r.json()["state"]
+
+
+def _drift(c, k, serial, layers, step=3.0, start=1):
+    """+step um a layer on side A and -step on side B, in the panel frame."""
+    state = None
+    for layer in range(start, start + layers):
+        _post(c, k, serial, layer, "A", step)
+        state = _post(c, k, serial, layer, "B", -step)
+    return state
+
+
+def _open(c, k):
+    r = c.get("/api/v1/holds?state=open", headers=k.headers("supervisor"))
+    assert r.status_code == 200
+    return r.json()["holds"]
+
+
+def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(setup):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    make_panel(db, "ALT", lot="LOT2")
+    state = _drift(c, k, "DRIFT", 6)
+    assert state["ftb"]["worst_um"] == pytest.approx(36.0, abs=1e-6)
+    assert state["risk"] == "at_risk"
+    assert state["forecast"]["p_exceed"] >= 0.20
+    assert state["forecast"]["remaining"] == {"A": list(range(7, 13)), "B": list(range(7, 13))}
+    assert any("um/layer" in r and "Side A" in r for r in state["reasons"])
+    for layer in range(1, 7):
+        sign = 1 if layer % 2 else -1
+        _post(c, k, "ALT", layer, "A", 3.0 * sign)
+        alt = _post(c, k, "ALT", layer, "B", -3.0 * sign)
+    assert alt["risk"] == "clear", alt["reasons"]
+    holds = _open(c, k)
+    assert [h["panel"] for h in holds] == ["DRIFT"]  # one hold, not one per measurement
+    h = holds[0]
+    assert h["kind"] == "automatic" and h["rule"] == "p_exceed_at_risk"
+    assert h["held_by"] == "stackledger (automatic)"
+    assert "um/layer" in h["reason"]
+    panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
+    assert panel["status"] == "on_hold"
+
+
+def test_released_panel_is_not_held_again_unless_worse(setup):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    _drift(c, k, "DRIFT", 4)
+    (hold,) = _open(c, k)
+    r = c.post(f"/api/v1/holds/{hold['id']}/disposition",
+               json={"action": "release", "note": "engineering review EV-17: continue"},
+               headers=k.headers("supervisor"))
+    assert r.status_code == 200, r.text
+    assert r.json()["state"] == "closed" and r.json()["disposition"] == "release"
+    # Re-measuring layer 4 with the same result: same figures, no new hold.
+    _post(c, k, "DRIFT", 4, "B", -3.0, minutes=2000)
+    assert _open(c, k) == []
+    panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
+    assert panel["status"] == "in_process" and panel["risk"] == "at_risk"
+    # One more layer of the same drift: worse than at release, so held again.
+    _drift(c, k, "DRIFT", 1, start=5)
+    (again,) = _open(c, k)
+    assert again["id"] != hold["id"]
+    assert again["ftb_now_um"] > hold["ftb_now_um"]
+
+
+def test_over_limit_l2l_is_held(setup):
+    db, c, k = setup
+    make_panel(db, "BIGSTEP")
+    state = _post(c, k, "BIGSTEP", 1, "A", 15.0)
+    assert state["risk"] == "over_limit"
+    assert any("L2L" in r or "layer 1" in r for r in state["reasons"])
+    (hold,) = _open(c, k)
+    assert hold["rule"] == "l2l_over_limit" and hold["risk"] == "over_limit"
+
+
+def test_disposition_roles_notes_and_audit(setup):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    _drift(c, k, "DRIFT", 4)
+    (hold,) = _open(c, k)
+    url = f"/api/v1/holds/{hold['id']}/disposition"
+    body = {"action": "scrap", "note": "FTB beyond recovery per QP-9"}
+    assert c.post(url, json=body, headers=k.headers("engineer")).status_code == 403
+    assert c.post(url, json=body, headers=k.headers("tool")).status_code == 403
+    assert c.post(url, json={"action": "scrap"}, headers=k.headers("supervisor")).status_code \
+        == 422
+    assert c.post(url, json={"action": "bin", "note": "x" * 5},
+                  headers=k.headers("supervisor")).status_code == 422
+    r = c.post(url, json=body, headers=k.headers("supervisor"))
+    assert r.status_code == 200
+    assert r.json()["disposed_by"] == "test supervisor"
+    assert c.post(url, json=body, headers=k.headers("supervisor")).status_code == 409
+    panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
+    assert panel["status"] == "scrapped"
+    refused = c.post("/api/v1/measurements", json=measurement("DRIFT", 5, "A"),
+                     headers=k.headers("tool"))
+    assert refused.status_code == 409 and "scrapped" in refused.json()["detail"]
+    entries = audit.list_for(db=db, subject="DRIFT")
+    actions = [e["action"] for e in entries]
+    assert actions == ["panel_register", "hold", "disposition_scrap"]
+    scrap = entries[-1]
+    assert scrap["actor"] == "test supervisor"
+    assert scrap["details"]["note"] == body["note"]
+    assert scrap["details"]["ftb_worst_um"] == pytest.approx(24.0, abs=1e-3)
+    assert entries[1]["actor"] == "stackledger (automatic)"
+    assert entries[1]["details"]["p_exceed"] >= 0.2
+
+
+def test_rework_names_the_last_layer_and_the_remeasurement_supersedes(setup):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    _drift(c, k, "DRIFT", 4)
+    (hold,) = _open(c, k)
+    r = c.post(f"/api/v1/holds/{hold['id']}/disposition",
+               json={"action": "rework", "note": "strip and re-expose layer 4 B"},
+               headers=k.headers("supervisor"))
+    assert r.status_code == 200
+    entry = audit.list_for(db=db, subject="DRIFT")[-1]
+    assert entry["action"] == "disposition_rework"
+    assert entry["details"]["rework"] == {"side": "B", "layer": 4}
+    state = _post(c, k, "DRIFT", 4, "B", 3.0, minutes=3000)  # reworked: now back toward zero
+    assert state["ftb"]["worst_um"] == pytest.approx(18.0, abs=1e-6)
+    stack = c.get("/api/v1/panels/DRIFT/stack", headers=k.headers("engineer")).json()
+    assert len([layer for layer in stack["layers"] if layer["side"] == "B"]) == 4
+
+
+def test_manual_hold_needs_engineer_and_reason(setup):
+    db, c, k = setup
+    make_panel(db, "CALM")
+    url = "/api/v1/panels/CALM/holds"
+    assert c.post(url, json={"reason": "suspect lamination"},
+                  headers=k.headers("tool")).status_code == 403
+    assert c.post(url, json={}, headers=k.headers("engineer")).status_code == 422
+    r = c.post(url, json={"reason": "suspect lamination"}, headers=k.headers("engineer"))
+    assert r.status_code == 201
+    assert r.json()["kind"] == "manual" and r.json()["held_by"] == "test engineer"
+    assert c.post(url, json={"reason": "again"}, headers=k.headers("engineer")).status_code == 409
+
+
+def test_hold_list_order_is_severity_then_age(setup):
+    db, c, k = setup
+    for serial in ("MANUAL-OLD", "RISK", "OVER", "MANUAL-NEW"):
+        make_panel(db, serial)
+    c.post("/api/v1/panels/MANUAL-OLD/holds", json={"reason": "first look"},
+           headers=k.headers("engineer"))
+    _drift(c, k, "RISK", 4)
+    _post(c, k, "OVER", 1, "A", 20.0)
+    c.post("/api/v1/panels/MANUAL-NEW/holds", json={"reason": "second look"},
+           headers=k.headers("engineer"))
+    holds = _open(c, k)
+    assert [h["panel"] for h in holds] == ["OVER", "RISK", "MANUAL-OLD", "MANUAL-NEW"]
+    assert [h["severity"] for h in holds] == sorted((h["severity"] for h in holds),
+                                                    reverse=True)
+
+
+def test_hold_list_csv_is_safe_and_carries_the_caution(setup):
+    db, c, k = setup
+    make_panel(db, "CALM", lot="=LOT(1)")
+    c.post("/api/v1/panels/CALM/holds", json={"reason": '=HYPERLINK("http://x","y")'},
+           headers=k.headers("engineer"))
+    r = c.get("/api/v1/holds.csv", headers=k.headers("supervisor"))
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
+    rows = list(csv.reader(io.StringIO(r.text)))
+    assert rows[0][0] == f"# {CAUTION}"
+    header, row = rows[1], rows[2]
+    record = dict(zip(header, row, strict=True))
+    assert record["reason"] == '\'=HYPERLINK("http://x","y")'
+    assert record["lot"] == "'=LOT(1)"
+    assert record["ftb_now_um"] == "0.0"  # a number, not quoted
+    assert c.get("/api/v1/holds", headers=k.headers("supervisor")).json()["caution"] == CAUTION
+
+
+@pytest.mark.parametrize("value,expected", [
+    ("=1+1", "'=1+1"), ("+SUM(A1)", "'+SUM(A1)"), ("-2", "'-2"), ("@cmd", "'@cmd"),
+    ("\tx", "'\tx"), ("\0x", "'\0x"), ("\rx", "'\rx"), ("plain", "plain"), (-3.5, -3.5),
+    (12, 12), (None, None),
+])
+def test_safe_cell(value, expected):
+    # reference: OWASP ASVS 5.0, requirement 1.2.10 (CSV and formula injection)
+    assert safe_cell(value) == expected

@@ -1,0 +1,85 @@
+"""Panel registration and the panel list: filters, sorting, cursor pagination."""
+
+from __future__ import annotations
+
+import pytest
+
+from tests.factories import client, make_keys, make_product, measurement
+
+
+@pytest.fixture
+def setup(db):
+    make_product(db)
+    make_product(db, code="OTHER", flip_axis="x")
+    return db, client(db), make_keys(db)
+
+
+def test_register_repeat_and_conflict(setup):
+    db, c, k = setup
+    body = {"serial": "P1", "product": "TESTPROD", "lot": "LOT1"}
+    first = c.post("/api/v1/panels", json=body, headers=k.headers("tool"))
+    assert first.status_code == 201
+    assert first.json()["status"] == "in_process" and first.json()["forecast"] is None
+    assert c.post("/api/v1/panels", json=body, headers=k.headers("tool")).status_code == 200
+    r = c.post("/api/v1/panels", json={**body, "lot": "LOT2"}, headers=k.headers("tool"))
+    assert r.status_code == 409 and "P1" in r.json()["detail"]
+    r = c.post("/api/v1/panels", json={"serial": "P2", "product": "OTHER", "lot": "LOT1"},
+               headers=k.headers("tool"))
+    assert r.status_code == 409 and "another product" in r.json()["detail"]
+    assert c.get("/api/v1/panels/NOPE", headers=k.headers("engineer")).status_code == 404
+
+
+def test_list_filters_sorting_and_pagination(setup):
+    db, c, k = setup
+    for i in range(7):
+        c.post("/api/v1/panels", json={"serial": f"P{i}", "product": "TESTPROD",
+                                       "lot": "LA" if i < 4 else "LB"}, headers=k.headers("tool"))
+        c.post("/api/v1/measurements", json=measurement(f"P{i}", 1, "A", (float(i % 4),)),
+               headers=k.headers("tool"))
+    c.post("/api/v1/panels", json={"serial": "Q0", "product": "OTHER", "lot": "LC"},
+           headers=k.headers("tool"))
+    h = k.headers("engineer")
+    all_ = c.get("/api/v1/panels?limit=3", headers=h).json()
+    serials = [p["serial"] for p in all_["items"]]
+    cursor = all_["next_cursor"]
+    while cursor:
+        page = c.get(f"/api/v1/panels?limit=3&cursor={cursor}", headers=h).json()
+        serials += [p["serial"] for p in page["items"]]
+        cursor = page["next_cursor"]
+    assert serials == ["P0", "P1", "P2", "P3", "P4", "P5", "P6", "Q0"]
+    lot_b = c.get("/api/v1/panels?lot=LB", headers=h).json()["items"]
+    assert [p["serial"] for p in lot_b] == ["P4", "P5", "P6"]
+    other = c.get("/api/v1/panels?product=OTHER", headers=h).json()["items"]
+    assert [p["serial"] for p in other] == ["Q0"]
+    # Sorted by FTB, worst first, paged two at a time; ties by serial, same direction.
+    got = []
+    url = "/api/v1/panels?sort=ftb&order=desc&limit=2"
+    while url:
+        page = c.get(url, headers=h).json()
+        got += [(p["ftb"]["worst_um"], p["serial"]) for p in page["items"]]
+        url = f"/api/v1/panels?sort=ftb&order=desc&limit=2&cursor={page['next_cursor']}" \
+            if page["next_cursor"] else None
+    assert [s for _, s in got] == ["P3", "P6", "P2", "P5", "P1", "P4", "P0"]
+    every = c.get("/api/v1/panels?limit=100", headers=h).json()["items"]
+    for level in ("clear", "watch", "at_risk", "over_limit"):
+        filtered = c.get(f"/api/v1/panels?risk={level}&limit=100", headers=h).json()["items"]
+        assert [p["serial"] for p in filtered] == [
+            p["serial"] for p in every if p["risk"] == level and p["forecast"] is not None]
+    bad = c.get("/api/v1/panels?status=lost", headers=h)
+    assert bad.status_code == 422 and bad.json()["errors"][0]["pointer"].startswith("query:")
+    assert c.get("/api/v1/panels?cursor=garbage", headers=h).status_code == 422
+
+
+def test_product_defaults_and_repeat(setup):
+    db, c, k = setup
+    p = c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).json()
+    assert len(p["check_points_mm"]) == 25
+    xs = sorted({x for x, _ in p["check_points_mm"]})
+    assert xs[0] == pytest.approx(-0.45 * 510) and xs[-1] == pytest.approx(0.45 * 510)
+    assert p["p_watch"] == 0.05 and p["p_at_risk"] == 0.20
+    body = {"code": "TESTPROD", "layers_per_side": 10, "flip_axis": "y", "panel_width_mm": 510,
+            "panel_height_mm": 515, "ftb_limit_um": 60, "l2l_limit_um": 12}
+    assert c.post("/api/v1/products", json=body, headers=k.headers("admin")).status_code == 409
+    bad = {**body, "code": "NEW", "check_points_mm": [[300, 0]]}
+    r = c.post("/api/v1/products", json=bad, headers=k.headers("admin"))
+    assert r.status_code == 422 and "outside the panel" in r.text
