@@ -6,11 +6,11 @@ from pathlib import Path
 from typing import Annotated
 
 import typer
-from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from app.db import Database
 from app.errors import DomainError
+from app.reports import wide_console
 
 cli = typer.Typer(help="stackledger: panel traceability and front-to-back overlay.",
                   no_args_is_help=True, add_completion=False)
@@ -18,8 +18,8 @@ db_cli = typer.Typer(help="Database schema.", no_args_is_help=True)
 key_cli = typer.Typer(help="API keys.", no_args_is_help=True)
 cli.add_typer(db_cli, name="db")
 cli.add_typer(key_cli, name="key")
-err = Console(stderr=True)
-out = Console()
+err = wide_console(stderr=True)
+out = wide_console()
 
 
 def _fail(exc: DomainError) -> None:

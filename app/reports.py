@@ -50,17 +50,30 @@ def print_closest(console: Console, panels: list[tuple[PanelRead, float]], title
 
 
 def print_holds(console: Console, hold_list: HoldList) -> None:
-    table = Table(title=f"Open holds: {len(hold_list.holds)}", show_lines=True)
-    for col in ("risk", "panel", "lot", "layers A/B", "FTB now", "forecast", "P(exc)",
-                "held since", "by", "reason"):
-        table.add_column(col, overflow="fold")
-    for h in hold_list.holds:
+    """The hold list: one table row per hold, worst first then oldest, then the reasons."""
+    table = Table(title=f"Open holds: {len(hold_list.holds)} (worst first, then oldest)")
+    for col in ("#", "risk", "panel", "lot", "A/B", "FTB now um", "forecast um (95 %)",
+                "P(exceed)", "held since (UTC)", "held by"):
+        table.add_column(col, no_wrap=True)
+    for i, h in enumerate(hold_list.holds, 1):
+        band = h.forecast_band_um
+        forecast = "-" if h.forecast_final_um is None else (
+            f"{h.forecast_final_um:.1f}" + (f" ({band[0]:.0f}-{band[1]:.0f})" if band else ""))
         table.add_row(
-            f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel, h.lot,
+            str(i), f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel, h.lot,
             f"{h.layers_reached.get('A', 0)}/{h.layers_reached.get('B', 0)}",
-            f"{h.ftb_now_um:.1f}", "-" if h.forecast_final_um is None else
-            f"{h.forecast_final_um:.1f}", _p(h.p_exceed),
-            h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by, h.reason,
+            f"{h.ftb_now_um:.1f}", forecast, _p(h.p_exceed),
+            h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by,
         )
     console.print(table)
-    console.print(f"[italic]{CAUTION}[/italic]")
+    for i, h in enumerate(hold_list.holds, 1):
+        console.print(f"[bold]{i:>3}. {h.panel}[/bold] ({h.kind}, {h.rule}): {h.reason}")
+    console.print(f"\n[italic]{CAUTION}[/italic]")
+
+
+def wide_console(stderr: bool = False) -> Console:
+    """A console that does not squeeze tables to 80 columns when output goes to a file."""
+    import sys
+
+    stream = sys.stderr if stderr else sys.stdout
+    return Console(stderr=stderr, width=None if stream.isatty() else 160)
