@@ -1,7 +1,8 @@
 """The hold list as the line supervisor reads it at shift start: CSV and plain text.
 
-CSV cells are safe against formula injection (OWASP ASVS 5.0, requirement 1.2.10): a string cell that starts
-with = + - @, a tab, a carriage return or NUL gets a leading single quote; numbers stay numbers.
+CSV cells are safe against formula injection (OWASP ASVS 5.0, requirement 1.2.10): a string
+cell that starts with = + - @, a tab, a carriage return or NUL gets a leading single quote;
+numbers stay numbers.
 """
 
 from __future__ import annotations

@@ -325,9 +325,9 @@ def import_csv(
             raise InvalidInput(f"'{name}' holds a header and no rows",
                                [FieldError(message="no rows", row=1)])
         if run.errors:
+            shown = f" (first {MAX_REPORTED} shown)" if len(run.errors) >= MAX_REPORTED else ""
             raise InvalidInput(
-                f"'{name}' was not imported: {len(run.errors)} problem(s)"
-                f"{' (first ' + str(MAX_REPORTED) + ' shown)' if len(run.errors) >= MAX_REPORTED else ''}"
+                f"'{name}' was not imported: {len(run.errors)} problem(s){shown}"
                 f"; first at row {run.errors[0].row}: {run.errors[0].message}",
                 run.errors,
             )

@@ -11,6 +11,7 @@ from app.config import get_settings
 from app.errors import FieldError
 from app.store.tables import Product
 
+
 def check_measurement(
     *,
     product: Product,

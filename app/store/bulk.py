@@ -15,7 +15,6 @@ from typing import Any
 from sqlalchemy import Table, bindparam
 from sqlalchemy.orm import Session
 
-
 # How SQLAlchemy's types store values in SQLite, for rows that bypass it: Uuid as 32 hex
 # characters, timestamps (UtcDateTime) as naive UTC text, JSON as text.
 _SQLITE_VALUE: dict[str, Callable[[Any], Any]] = {

@@ -145,7 +145,7 @@ def test_unknown_product_when_registering_a_panel(setup):
 
 
 def test_problem_errors_say_where(setup):
-    db, c, k = setup
+    _db, c, k = setup
     r = c.post("/api/v1/measurements", json=_with("sites/2/dx_um", 1500.0),
                headers=k.headers("tool"))
     assert r.json()["errors"][0]["pointer"] == "/sites/2/dx_um"

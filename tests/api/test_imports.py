@@ -113,7 +113,7 @@ def test_one_bad_row_refuses_the_whole_file(setup, case):
 
 
 def test_duplicate_sites_and_split_measurements_are_reported(setup):
-    db, c, k = setup
+    _db, c, k = setup
     m = measurement("P0001", 1, "A", (1.0,))
     text = _csv(m) + _csv(measurement("P0002", 1, "A"))[len(HEADER):] + _csv(m)[len(HEADER):]
     r = _post(c, k, text)
@@ -139,7 +139,7 @@ def test_wrong_header_and_non_utf8_and_empty(setup):
 def test_import_over_several_chunks(setup, monkeypatch):
     from app.config import get_settings
 
-    db, c, k = setup
+    _db, c, k = setup
     monkeypatch.setenv("STACKLEDGER_IMPORT_CHUNK_ROWS", "7")  # measurements span chunk edges
     get_settings.cache_clear()
     rows = [measurement("P0001", layer, side, (1.0, 0.5), noise=0.2, seed=layer)

@@ -42,7 +42,7 @@ def test_post_returns_fit_and_state(setup):
 def test_ftb_in_api_equals_core_computation(setup):
     """Side B posted in its tool frame; the API's FTB must equal the core's own accumulation of
     the mirrored fits at the product's default check points."""
-    db, c, k = setup
+    _db, c, k = setup
     rng = np.random.default_rng(7)
     core_a, core_b = [], []
     for layer in (1, 2, 3):
@@ -95,7 +95,7 @@ def test_second_measurement_supersedes_and_both_are_kept(setup):
 
 
 def test_layers_out_of_order_report_missing(setup):
-    db, c, k = setup
+    _db, c, k = setup
     for layer in (3, 1):
         r = c.post("/api/v1/measurements", json=measurement("P0001", layer, "A", (1.0,)),
                    headers=k.headers("tool"))
@@ -107,7 +107,7 @@ def test_layers_out_of_order_report_missing(setup):
 
 
 def test_side_b_frame_panel_is_not_mirrored(setup):
-    db, c, k = setup
+    _db, c, k = setup
     tool = c.post("/api/v1/measurements", json=measurement("P0001", 1, "B", (3.0,)),
                   headers=k.headers("tool")).json()
     assert tool["fit"]["tx_um"] == pytest.approx(-3.0, abs=1e-9)  # flip about y: Tx changes sign
@@ -118,7 +118,7 @@ def test_side_b_frame_panel_is_not_mirrored(setup):
 
 
 def test_stack_endpoint_lists_layers_with_cumulative_ftb(setup):
-    db, c, k = setup
+    _db, c, k = setup
     for layer in (1, 2):
         c.post("/api/v1/measurements", json=measurement("P0001", layer, "A", (5.0,)),
                headers=k.headers("tool"))

@@ -15,7 +15,7 @@ def setup(db):
 
 
 def test_register_repeat_and_conflict(setup):
-    db, c, k = setup
+    _db, c, k = setup
     body = {"serial": "P1", "product": "TESTPROD", "lot": "LOT1"}
     first = c.post("/api/v1/panels", json=body, headers=k.headers("tool"))
     assert first.status_code == 201
@@ -30,7 +30,7 @@ def test_register_repeat_and_conflict(setup):
 
 
 def test_list_filters_sorting_and_pagination(setup):
-    db, c, k = setup
+    _db, c, k = setup
     for i in range(7):
         c.post("/api/v1/panels", json={"serial": f"P{i}", "product": "TESTPROD",
                                        "lot": "LA" if i < 4 else "LB"}, headers=k.headers("tool"))
@@ -71,7 +71,7 @@ def test_list_filters_sorting_and_pagination(setup):
 
 
 def test_product_defaults_and_repeat(setup):
-    db, c, k = setup
+    _db, c, k = setup
     p = c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).json()
     assert len(p["check_points_mm"]) == 25
     xs = sorted({x for x, _ in p["check_points_mm"]})

@@ -53,7 +53,8 @@ def test_matrix_covers_every_route():
     assert routes == covered
 
 
-@pytest.mark.parametrize("method,path,allowed,body", MATRIX, ids=[f"{m} {p}" for m, p, *_ in MATRIX])
+@pytest.mark.parametrize("method,path,allowed,body", MATRIX,
+                         ids=[f"{m} {p}" for m, p, *_ in MATRIX])
 def test_role_matrix(db, method, path, allowed, body):
     make_product(db)
     make_panel(db)
