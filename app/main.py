@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
+import importlib.resources
 from collections.abc import AsyncIterator, Awaitable, Callable
 from contextlib import asynccontextmanager
 
-import swagger_ui_bundle
 from fastapi import FastAPI, Request, Response
 from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.responses import HTMLResponse
@@ -47,8 +47,9 @@ def create_app(db: Database | None = None) -> FastAPI:
     app.add_middleware(BodyCapture)
     for module in (products, panels, measurements, holds, service):
         app.include_router(module.router)
-    app.mount("/static/swagger", StaticFiles(directory=swagger_ui_bundle.swagger_ui_path),
-              name="swagger")
+    # Swagger UI 5 (it reads OpenAPI 3.1), from the files bundled in the fastapi-offline package.
+    swagger_dir = importlib.resources.files("fastapi_offline") / "static"
+    app.mount("/static/swagger", StaticFiles(directory=str(swagger_dir)), name="swagger")
 
     @app.get("/docs", include_in_schema=False)
     def docs() -> HTMLResponse:
@@ -57,7 +58,7 @@ def create_app(db: Database | None = None) -> FastAPI:
             openapi_url="/openapi.json", title="stackledger API",
             swagger_js_url="/static/swagger/swagger-ui-bundle.js",
             swagger_css_url="/static/swagger/swagger-ui.css",
-            swagger_favicon_url="/static/swagger/favicon-32x32.png",
+            swagger_favicon_url="/static/swagger/favicon.png",
         )
 
     @app.middleware("http")

@@ -81,9 +81,11 @@ def test_try_get_panel_with_engineer_key(page: Any, live_server: LiveServer,
     modal = page.locator(".swagger-ui .modal-ux")
     modal.wait_for()
     modal.locator("input[type=text], input[type=password]").first.fill(live_server.engineer_key)
-    modal.get_by_role("button", name="Authorize", exact=True).click()
-    modal.get_by_role("button", name="Logout", exact=True).wait_for()  # the key was taken
-    modal.get_by_role("button", name="Close", exact=True).click()
+    # Swagger UI 5 labels its buttons for screen readers ("Apply credentials", ...): match the
+    # text a person sees instead of the accessible name.
+    modal.locator("button", has_text="Authorize").last.click()
+    modal.locator("button", has_text="Logout").wait_for()  # the key was taken
+    modal.locator("button", has_text="Close").first.click()
     modal.wait_for(state="detached")
 
     # Expand GET /api/v1/panels/{serial}, try it out with the panel's serial.
