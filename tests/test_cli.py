@@ -1,0 +1,63 @@
+"""The command line, against each database through STACKLEDGER_DATABASE_URL."""
+
+from __future__ import annotations
+
+import pytest
+from typer.testing import CliRunner
+
+from app.cli import cli
+from app.config import get_settings
+from tests.factories import make_panel, make_product
+
+HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+
+
+@pytest.fixture
+def env(db, monkeypatch):
+    monkeypatch.setenv("STACKLEDGER_DATABASE_URL", db.engine.url.render_as_string(
+        hide_password=False))
+    get_settings.cache_clear()
+    make_product(db)
+    make_panel(db, "P1")
+    yield db
+    get_settings.cache_clear()
+
+
+def test_key_create_prints_the_key_alone(env):
+    r = CliRunner().invoke(cli, ["key", "create", "--role", "engineer", "--label", "shift A"])
+    assert r.exit_code == 0, r.output
+    (line,) = r.stdout.strip().splitlines()
+    assert line.startswith("sl_") and len(line) > 30
+    bad = CliRunner().invoke(cli, ["key", "create", "--role", "boss", "--label", "x"])
+    assert bad.exit_code == 2 and "role must be one of" in bad.stderr
+
+
+def test_import_panel_and_holds(env, tmp_path):
+    rows = [f"P1,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,{x},{y},20,0\n"
+            for x in (-200, 0, 200) for y in (-200, 0, 200)]
+    path = tmp_path / "m.csv"
+    path.write_text(HEADER + "".join(rows), encoding="utf-8")
+    r = CliRunner().invoke(cli, ["import", str(path)])
+    assert r.exit_code == 0, r.output
+    assert "imported 9 rows: 1 measurements of 1 panels" in r.stderr
+    r = CliRunner().invoke(cli, ["panel", "P1"])
+    assert r.exit_code == 0 and "over_limit" in r.stdout and "FTB worst 20.0 um" in r.stdout
+    r = CliRunner().invoke(cli, ["holds", "--csv"])
+    assert r.exit_code == 0
+    lines = r.stdout.splitlines()
+    assert "quality procedures" in lines[0] and lines[1].startswith("severity,risk,panel")
+    assert lines[2].split(",")[2] == "P1"
+    r = CliRunner().invoke(cli, ["holds"])
+    assert "P1" in r.stdout and "qualified engineers" in r.stdout
+
+
+def test_bad_import_is_refused_and_kept(env, tmp_path):
+    from app.services import rejections
+
+    path = tmp_path / "bad.csv"
+    path.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    r = CliRunner().invoke(cli, ["import", str(path)])
+    assert r.exit_code == 2
+    assert "row 1, column side" in r.stderr
+    kept = rejections.latest(db=env)
+    assert kept.endpoint == "cli import bad.csv" and kept.body == path.read_bytes()
