@@ -10,49 +10,31 @@ so a fit is one ordinary least-squares solve of the basis ``[1, x, y, xy]`` (tra
 number of terms acting on one axis is therefore 4, 3 or 1; that is the ``p`` in the residual
 degrees of freedom ``n - p``.
 
-Numerics: the sites are first centred on their mean and divided by one common length (the
-largest distance of a site from that mean along either axis). A common length, not one per axis,
-keeps the layout's true aspect ratio, so a strip of sites that is nearly a line is seen as nearly
-collinear, and huge coordinates (1e6 mm) do not upset the rank test or the solve. The basis is
-then orthogonalised column by column (modified Gram-Schmidt); a column with (almost) nothing
-left once the earlier ones are removed means the sites cannot determine that term, and the fit
-falls back to a smaller model. The coefficients found in the centred frame are re-expanded about
-the panel centre (origin), which is what is reported; residuals come from the centred solve.
-
-``fit_many`` groups measurements by site count and runs the orthogonalisation on all of a group
-at once, right-hand sides included. ``fit_measurement`` applies the same rank rule to one
-measurement and solves it independently with ``numpy.linalg.lstsq``.
+The numerics (normalisation, the rank rule and fallback, the solves, re-expansion about the
+panel centre) live in ``_lsq``. ``fit_measurement`` solves one measurement with
+``numpy.linalg.lstsq``; ``fit_many`` groups measurements by site count, and within a group lets
+measurements with the same site layout share one solve operator and orthogonalises the others
+all at once. Both apply the same rank rule, so they pick the same model and agree to round-off.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import Final
 
 import numpy as np
 from numpy.typing import NDArray
 
+from app.overlay import _lsq
 from app.overlay.errors import OverlayInputError
 from app.overlay.model import PER_MM_TO_MICRO, TERM_NAMES, FloatArray
 
-#: Model names from the fullest to the fallback of last resort, with basis columns per axis.
-_MODELS: Final = ("trapezoid", "linear", "translation")
-_N_BASIS: Final = {"trapezoid": 4, "linear": 3, "translation": 1}
+#: Names of the fitted terms per model.
 _FITTED: Final = {
     "trapezoid": TERM_NAMES,
     "linear": TERM_NAMES[:6],
     "translation": TERM_NAMES[:2],
 }
-#: Rank rule: a basis column is taken as undetermined when, after the earlier columns are
-#: removed, its norm is below this fraction of sqrt(n) (the norm of the ones column, the largest
-#: possible on the scaled sites). Scatter off a line of less than about a billionth of the
-#: layout's size carries no usable information on the missing term, and the margin to float
-#: round-off (~1e-16) is wide, so the decision does not hang on the order of operations.
-_RANK_RTOL: Final = 1e-9
-#: Site spread below this fraction of the coordinates' magnitude is float round-off of the mean:
-#: all sites are taken to coincide.
-_SPREAD_RTOL: Final = 1e-12
-_NO_DOF_NOTE: Final = "no residual degrees of freedom: sigma reported as 0"
 
 
 @dataclass(frozen=True, slots=True)
@@ -193,203 +175,20 @@ def _check_counts(counts: object, total: int) -> NDArray[np.int64]:
     return c.astype(np.int64)
 
 
-def _normalise(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
-    """Centre and scale sites of shape (g, n); return u, v (g, n) and (cx, cy, s) (g, 3)."""
-    cx = x.mean(axis=-1)
-    cy = y.mean(axis=-1)
-    x_lo, x_hi, y_lo, y_hi = x.min(axis=-1), x.max(axis=-1), y.min(axis=-1), y.max(axis=-1)
-    s = np.maximum.reduce([x_hi - cx, cx - x_lo, y_hi - cy, cy - y_lo])
-    magnitude = np.maximum.reduce([np.abs(x_lo), np.abs(x_hi), np.abs(y_lo), np.abs(y_hi)])
-    # Coincident sites (spread only round-off of the mean): scale 1 and exact zero columns, so
-    # the rank rule sees them and drops to translation.
-    coincident = s <= _SPREAD_RTOL * magnitude
-    s = np.where(coincident, 1.0, s)
-    keep = np.where(coincident, 0.0, 1.0 / s)[:, np.newaxis]
-    u = (x - cx[:, np.newaxis]) * keep
-    v = (y - cy[:, np.newaxis]) * keep
-    return u, v, np.stack([cx, cy, s], axis=-1)
-
-
-class _Orthogonal:
-    """Modified Gram-Schmidt factor of the basis [1, u, v, uv] for g measurements at once.
-
-    Sites are arrays (g, n). u and v are taken in order of decreasing norm (see ``__init__``).
-    ``ok[i]`` (g,) says basis column i keeps a norm above ``_RANK_RTOL * sqrt(n)`` after the
-    earlier columns are removed from it: that is the rank rule. Carrying the right-hand sides
-    through the same sweep (``solve``) gives a backward-stable least-squares solution (Bjorck
-    1967, "Solving linear least squares problems by Gram-Schmidt orthogonalization", BIT 7) and
-    the residuals of each nested model on the way.
-    """
-
-    def __init__(self, u: FloatArray, v: FloatArray, k: int) -> None:
-        g, n = u.shape
-        self.k = k
-        # Larger of u, v first: for a 2x2 triangular factor [[a, b], [0, c]] with b^2 + c^2 <=
-        # a^2, sigma_min >= c / sqrt(2), so the diagonal test tracks the singular values.
-        self.swap = np.einsum("gn,gn->g", v, v) > np.einsum("gn,gn->g", u, u)
-        if self.swap.all() or not self.swap.any():
-            first, second = (v, u) if self.swap.any() else (u, v)
-        else:
-            first = np.where(self.swap[:, np.newaxis], v, u)
-            second = np.where(self.swap[:, np.newaxis], u, v)
-        cols = [first, second, u * v] if k == 4 else [first, second][: k - 1]
-        limit = _RANK_RTOL * np.sqrt(n)
-        self.ok: list[NDArray[np.bool_]] = [np.ones(g, dtype=bool)]
-        #: Orthogonal columns w_i (i >= 1), 1 / (w_i . w_i) (0 where not ok), and
-        #: mu[i][j] = coefficient of w_i in basis column j > i (level 0 is the ones column).
-        self.w: dict[int, FloatArray] = {}
-        self.inv_ww: dict[int, FloatArray] = {}
-        self.mu: list[dict[int, FloatArray]] = [{}]
-        for j, c in enumerate(cols, start=1):
-            self.mu[0][j] = c.mean(axis=1)
-            cols[j - 1] = c - self.mu[0][j][:, np.newaxis]
-        for i in range(1, k):
-            w = cols[i - 1]
-            ww = np.einsum("gn,gn->g", w, w)
-            ok = np.sqrt(ww) > limit
-            inv = np.where(ok, 1.0 / np.where(ok, ww, 1.0), 0.0)
-            self.ok.append(ok)
-            self.w[i] = w
-            self.inv_ww[i] = inv
-            self.mu.append({})
-            for j in range(i + 1, k):
-                self.mu[i][j] = np.einsum("gn,gn->g", w, cols[j - 1]) * inv
-                cols[j - 1] = cols[j - 1] - self.mu[i][j][:, np.newaxis] * w
-
-    def solve(
-        self, rhs: list[FloatArray], choice: NDArray[np.int64]
-    ) -> tuple[FloatArray, list[FloatArray]]:
-        """Least squares of each right-hand side (g, n) on the model ``choice`` (g,) picks.
-
-        Returns coefficients of [1, u, v, uv] (g, 4, len(rhs)) and the residuals, one (g, n)
-        array per right-hand side.
-        """
-        g = choice.size
-        k_of = np.array([_N_BASIS[m] for m in _MODELS])[choice]
-        used = sorted(set(k_of.tolist()))
-        coef = np.zeros((g, 4, len(rhs)))
-        residuals = []
-        buffer = np.empty(rhs[0].shape)
-        for a, d in enumerate(rhs):
-            z = [d.mean(axis=1)]
-            r = d - z[0][:, np.newaxis]
-            single = len(used) == 1  # the usual case: r itself becomes the residual
-            out = r if single else np.empty_like(r)
-            if 1 in used and not single:
-                out[k_of == 1] = r[k_of == 1]
-            for i in range(1, max(used)):
-                z.append(np.einsum("gn,gn->g", self.w[i], r) * self.inv_ww[i])
-                np.multiply(self.w[i], z[i][:, np.newaxis], out=buffer)
-                r -= buffer
-                if i + 1 in used and not single:  # the (i + 1)-column model's residual is final
-                    out[k_of == i + 1] = r[k_of == i + 1]
-            residuals.append(out)
-            for k in used:
-                # Back substitution on the unit upper triangular factor:
-                # b_i = z_i - sum over j > i of mu_ij b_j.
-                b: list[FloatArray] = [np.zeros(g)] * k
-                for i in range(k - 1, -1, -1):
-                    b[i] = z[i] - sum((self.mu[i][j] * b[j] for j in range(i + 1, k)), np.zeros(g))
-                sel = k_of == k
-                coef[sel, 0, a] = b[0][sel]
-                if k >= 3:
-                    coef[sel, 1, a] = np.where(self.swap, b[2], b[1])[sel]
-                    coef[sel, 2, a] = np.where(self.swap, b[1], b[2])[sel]
-                if k == 4:
-                    coef[sel, 3, a] = b[3][sel]
-        return coef, residuals
-
-
-def _k_max(n: int, requested: str) -> int:
-    """Basis columns needed: those of the fullest model that ``n`` sites can possibly carry."""
-    return max(k for k in _N_BASIS.values() if k <= min(n, _N_BASIS[requested]))
-
-
-def _flags(orth: _Orthogonal) -> dict[str, NDArray[np.bool_]]:
-    """The rank rule per model: determined when every basis column passed; (g,) each."""
-    flags: dict[str, NDArray[np.bool_]] = {}
-    if orth.k >= 3:
-        flags["linear"] = orth.ok[1] & orth.ok[2]
-    if orth.k == 4:
-        flags["trapezoid"] = flags["linear"] & orth.ok[3]
-    return flags
-
-
-def _choose(
-    n: int, requested: str, flags: dict[str, NDArray[np.bool_]], g: int
-) -> tuple[NDArray[np.int64], list[str | None]]:
-    """Model used for each of g measurements of n sites (index into ``_MODELS``) and notes."""
-    choice = np.full(g, len(_MODELS) - 1, dtype=np.int64)
-    undecided = np.ones(g, dtype=bool)
-    reasons: dict[int, list[str]] = {}
-    for i in range(_MODELS.index(requested), len(_MODELS) - 1):
-        name = _MODELS[i]
-        if n < _N_BASIS[name]:
-            why = f"{name} needs at least {_N_BASIS[name]} sites, got {n}"
-            ok = np.zeros(g, dtype=bool)
-        else:
-            why = "sites are collinear" if name == "linear" else "sites do not fix the x*y terms"
-            ok = flags[name]
-        choice[undecided & ok] = i
-        failed = undecided & ~ok
-        if name == "trapezoid" and "linear" in flags:
-            # Collinear sites fail both; say so once, at the linear step.
-            reasons.update({j: [] for j in np.flatnonzero(failed & ~flags["linear"]).tolist()})
-            failed &= flags["linear"]
-        for j in np.flatnonzero(failed).tolist():
-            reasons.setdefault(j, []).append(why)
-        undecided &= ~ok
-    notes: list[str | None] = [None] * g
-    no_dof = [n - _N_BASIS[m] <= 0 for m in _MODELS]
-    for j in set(reasons) | set(np.flatnonzero(np.array(no_dof)[choice]).tolist()):
-        model = _MODELS[int(choice[j])]
-        parts = [*reasons.get(j, []), f"fitted {model}"] if j in reasons else []
-        if no_dof[int(choice[j])]:
-            parts.append(_NO_DOF_NOTE)
-        notes[j] = "; ".join(parts)
-    return choice, notes
-
-
-def _to_terms(coef: FloatArray, frame: FloatArray) -> FloatArray:
-    """Re-expand centred coefficients about the origin.
-
-    ``coef`` (g, 4, 2): coefficients of [1, u, v, uv] for dx and dy, zero-padded;
-    ``frame`` (g, 3): (cx, cy, s) with u = (x - cx)/s, v = (y - cy)/s. Expanding
-    b0 + b1 u + b2 v + b3 uv in x, y gives
-    c_xy = b3/s^2, c_x = b1/s - b3 cy/s^2, c_y = b2/s - b3 cx/s^2,
-    c_1 = b0 - b1 cx/s - b2 cy/s + b3 cx cy/s^2. Returns term vectors (g, 8).
-    """
-    cx, cy, s = (frame[:, i, np.newaxis] for i in range(3))
-    b0, b1, b2, b3 = (coef[:, i, :] for i in range(4))
-    c_xy = b3 / s**2
-    c_x = b1 / s - c_xy * cy
-    c_y = b2 / s - c_xy * cx
-    c_1 = b0 - b1 * cx / s - b2 * cy / s + c_xy * cx * cy
-    terms = np.empty((coef.shape[0], 8))
-    # x axis basis (1, x, y, xy) -> (Tx, Sx, -Ox, Kx); y axis -> (Ty, Oy, Sy, Ky).
-    terms[:, 0], terms[:, 1] = c_1[:, 0], c_1[:, 1]
-    terms[:, 2], terms[:, 3] = c_x[:, 0], c_y[:, 1]
-    terms[:, 4], terms[:, 5] = -c_y[:, 0], c_x[:, 1]
-    terms[:, 6], terms[:, 7] = c_xy[:, 0], c_xy[:, 1]
-    return terms
+#: OverlayFit's slot setters in field order. A frozen dataclass's __init__ routes every field
+#: through object.__setattr__, which makes construction about half of the result-building time;
+#: the slot descriptors set the same fields directly at about half that cost. There is no
+#: __post_init__ to skip (test_fast_results_match_constructor checks both points).
+_SETTERS: Final = tuple(OverlayFit.__dict__[f.name].__set__ for f in fields(OverlayFit))
 
 
 def _results(
-    x: FloatArray,
-    y: FloatArray,
-    rx: FloatArray,
-    ry: FloatArray,
-    terms: FloatArray,
-    choice: NDArray[np.int64],
-    notes: list[str | None],
-    requested: str,
+    x: FloatArray, y: FloatArray, solution: _lsq.Solution, requested: str
 ) -> list[OverlayFit]:
-    """Residual statistics and result objects for g measurements of n sites.
-
-    x, y, rx, ry (g, n): sites and residuals; terms (g, 8); choice (g,) index into ``_MODELS``.
-    """
+    """Residual statistics and result objects for g measurements of sites x, y (g, n)."""
+    terms, choice, notes, rx, ry = solution
     g, n = x.shape
-    dof = n - np.array([_N_BASIS[m] for m in _MODELS])[choice]
+    dof = n - np.array([_lsq.N_BASIS[m] for m in _lsq.MODELS])[choice]
     # sigma with n - p degrees of freedom; 0 (and a note) when there are none.
     inv_dof = np.where(dof > 0, 1.0 / np.maximum(dof, 1), 0.0)
     stats = []
@@ -397,7 +196,10 @@ def _results(
         mean = r.mean(axis=1)
         sigma = np.sqrt(np.einsum("gn,gn->g", r, r) * inv_dof)
         stats.append((mean, sigma, np.abs(mean) + 3.0 * sigma))
-    length_sq = rx * rx + ry * ry  # np.hypot is several times slower and not needed here
+    # Squared length in place: np.hypot is several times slower, and each fresh (g, n)
+    # temporary costs its page faults.
+    length_sq = np.multiply(rx, rx)
+    length_sq += np.square(ry, out=np.empty_like(ry))
     worst = length_sq.argmax(axis=1)
     rows = np.arange(g)
     terms[:, :] = np.where(terms == 0.0, 0.0, terms)  # no negative zeros in reports
@@ -409,28 +211,27 @@ def _results(
     )
     worst_l = np.sqrt(length_sq[rows, worst]).tolist()
     at_l = list(zip(x[rows, worst].tolist(), y[rows, worst].tolist(), strict=True))
-    models = [_MODELS[i] for i in choice.tolist()]
-    # Positional arguments in field order: keyword construction costs about twice as much, and
-    # building the objects is a large share of fit_many's time.
-    return [
-        OverlayFit(row, _FITTED[model], model, requested, note, n, mean, sigma, m3s, worst, at)
-        for row, model, note, mean, sigma, m3s, worst, at in zip(
-            terms, models, notes, mean_l, sigma_l, m3s_l, worst_l, at_l, strict=True
-        )
-    ]
-
-
-def _fit_group(
-    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
-) -> list[OverlayFit]:
-    """Batched fit of g measurements with the same site count n; all arrays (g, n)."""
-    g, n = x.shape
-    u, v, frame = _normalise(x, y)
-    orth = _Orthogonal(u, v, _k_max(n, requested))
-    choice, notes = _choose(n, requested, _flags(orth), g)
-    coef, (rx, ry) = orth.solve([dx, dy], choice)
-    terms = _to_terms(coef, frame)
-    return _results(x, y, rx, ry, terms, choice, notes, requested)
+    models = [_lsq.MODELS[i] for i in choice.tolist()]
+    new = OverlayFit.__new__
+    s_terms, s_fitted, s_model, s_req, s_note, s_n, s_mean, s_sigma, s_m3s, s_worst, s_at = _SETTERS
+    out = []
+    for row, model, note, mean, sigma, m3s, worst, at in zip(
+        terms, models, notes, mean_l, sigma_l, m3s_l, worst_l, at_l, strict=True
+    ):
+        f = new(OverlayFit)
+        s_terms(f, row)
+        s_fitted(f, _FITTED[model])
+        s_model(f, model)
+        s_req(f, requested)
+        s_note(f, note)
+        s_n(f, n)
+        s_mean(f, mean)
+        s_sigma(f, sigma)
+        s_m3s(f, m3s)
+        s_worst(f, worst)
+        s_at(f, at)
+        out.append(f)
+    return out
 
 
 # ----------------------------------------------------------------------------- public API
@@ -466,21 +267,8 @@ def fit_measurement(
     if n == 0:
         raise OverlayInputError("a measurement needs at least one site, got none")
     requested = "trapezoid" if trapezoid else "linear"
-    u, v, frame = _normalise(x[np.newaxis], y[np.newaxis])
-    k_max = _k_max(n, requested)
-    choice, notes = _choose(n, requested, _flags(_Orthogonal(u, v, k_max)), 1)
-    k = _N_BASIS[_MODELS[int(choice[0])]]
-    # Same rank rule as fit_many, independent solve: LAPACK least squares on [1, u, v, uv][:k].
-    design = np.stack([np.ones(n), u[0], v[0], u[0] * v[0]][:k], axis=-1)
-    d = np.stack([dx, dy], axis=-1)
-    b, *_ = np.linalg.lstsq(design, d, rcond=None)
-    coef = np.zeros((1, 4, 2))
-    coef[0, :k, :] = b
-    residual = (d - design @ b).T[:, np.newaxis, :]
-    terms = _to_terms(coef, frame)
-    return _results(
-        x[np.newaxis], y[np.newaxis], residual[0], residual[1], terms, choice, notes, requested
-    )[0]
+    solution = _lsq.solve_one(x, y, dx, dy, requested)
+    return _results(x[np.newaxis], y[np.newaxis], solution, requested)[0]
 
 
 def fit_many(
@@ -521,15 +309,15 @@ def fit_many(
         return []
     if np.all(c == c[0]):  # one site count: a reshape, no gathering
         shape = (c.size, int(c[0]))
-        return _fit_group(
-            x.reshape(shape), y.reshape(shape), dx.reshape(shape), dy.reshape(shape), requested
-        )
+        xs, ys, dxs, dys = (a.reshape(shape) for a in (x, y, dx, dy))
+        return _results(xs, ys, _lsq.solve_group(xs, ys, dxs, dys, requested), requested)
     starts = np.concatenate([[0], np.cumsum(c)[:-1]])
     out: list[OverlayFit | None] = [None] * c.size
     for n in np.unique(c).tolist():
         members = np.flatnonzero(c == n)
         idx = starts[members, np.newaxis] + np.arange(n)
-        fits = _fit_group(x[idx], y[idx], dx[idx], dy[idx], requested)
+        xs, ys = x[idx], y[idx]
+        fits = _results(xs, ys, _lsq.solve_group(xs, ys, dx[idx], dy[idx], requested), requested)
         for j, f in zip(members.tolist(), fits, strict=True):
             out[j] = f
     return [f for f in out if f is not None]

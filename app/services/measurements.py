@@ -96,8 +96,8 @@ def accept(
     principal: Principal,
     body: bytes,
     idempotency_key: str | None = None,
-) -> tuple[int, dict[str, Any]]:
-    """Store one measurement; returns (HTTP status to answer with, answer body)."""
+) -> tuple[bool, dict[str, Any]]:
+    """Store one measurement; returns (whether this is a replay of a stored answer, answer)."""
     digest = hashlib.sha256(body).hexdigest()
     with db.transaction() as session:
         if idempotency_key is not None:
@@ -108,7 +108,7 @@ def accept(
                         f"Idempotency-Key '{idempotency_key}' was already used with a different "
                         "body; use a new key for a new measurement"
                     )
-                return 200, record.response
+                return True, record.response
         # The row lock serialises writers of one panel (PostgreSQL), so that each rebuilt state
         # sees every fit committed before it; SQLite's BEGIN IMMEDIATE already serialises.
         panel = session.get(Panel, data.panel, with_for_update=True)
@@ -169,4 +169,4 @@ def accept(
                 key=idempotency_key, key_owner=principal.key_id, body_sha256=digest,
                 status_code=201, response=answer,
             ))
-        return 201, answer
+        return False, answer

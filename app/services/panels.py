@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import base64
 import json
+from datetime import datetime
 from typing import Any
 
 from sqlalchemy import Select, and_, or_, select
@@ -160,8 +161,6 @@ def list_panels(
         if cursor:
             last_key, last_serial = _cursor_decode(cursor)
             if sort == "updated":
-                from datetime import datetime
-
                 last_key = datetime.fromisoformat(last_key)
             beyond = key < last_key if descending else key > last_key
             tie = Panel.serial < last_serial if descending else Panel.serial > last_serial

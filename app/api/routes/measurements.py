@@ -27,11 +27,11 @@ def post_measurement(
 ) -> Any:
     """Post one layer's overlay measurement of one panel and side; answers the fit and the
     panel's updated state. A repeat for the same panel, layer and side supersedes."""
-    status, body = measurements.accept(
+    replayed, body = measurements.accept(
         db=db, data=data, principal=who, body=raw_body(request),
         idempotency_key=idempotency_key,
     )
-    return JSONResponse(body, status_code=status)
+    return JSONResponse(body, status_code=200 if replayed else 201)
 
 
 @router.post("/imports", response_model=ImportRead, status_code=201)

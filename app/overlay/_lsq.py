@@ -1,0 +1,407 @@
+"""Numeric core of the overlay fit: normalisation, rank rule, model choice and the solves.
+
+Private to ``app.overlay.fit``, which checks inputs and builds the results. The model splits
+into two regressions on one basis, ``[1, x, y, xy]`` (trapezoid), ``[1, x, y]`` (linear) or
+``[1]`` (translation), against dx and dy; see the ``fit`` module docstring.
+
+Numerics: the sites are first centred on their mean and divided by one common length (the
+largest distance of a site from that mean along either axis). A common length, not one per axis,
+keeps the layout's true aspect ratio, so a strip of sites that is nearly a line is seen as nearly
+collinear, and huge coordinates (1e6 mm) do not upset the rank test or the solve. The basis is
+then orthogonalised column by column (modified Gram-Schmidt); a column with (almost) nothing
+left once the earlier ones are removed means the sites cannot determine that term, and the fit
+falls back to a smaller model. The coefficients found in the centred frame are re-expanded about
+the panel centre (origin), which is what is reported; residuals come from the centred solve.
+
+Three solves share that rank rule:
+
+- ``solve_one``: one measurement, LAPACK least squares (``numpy.linalg.lstsq``).
+- ``solve_group``, layouts seen at least ``MIN_SHARED`` times in the group: a tool measures the
+  same target grid every time, so measurements with bit-identical x and y share one rank
+  decision and one least-squares operator (the pseudo-inverse of the basis), applied to all
+  their right-hand sides with one matrix product.
+- ``solve_group``, every other measurement: the orthogonalisation runs on all of them at once,
+  right-hand sides included (``Orthogonal``).
+"""
+
+from __future__ import annotations
+
+from typing import Final, NamedTuple
+
+import numpy as np
+from numpy.typing import NDArray
+
+from app.overlay.model import FloatArray
+
+IntArray = NDArray[np.int64]
+BoolArray = NDArray[np.bool_]
+
+#: Model names from the fullest to the fallback of last resort, and basis columns per axis.
+MODELS: Final = ("trapezoid", "linear", "translation")
+N_BASIS: Final = {"trapezoid": 4, "linear": 3, "translation": 1}
+#: Rank rule: a basis column is taken as undetermined when, after the earlier columns are
+#: removed, its norm is below this fraction of sqrt(n) (the norm of the ones column, the largest
+#: possible on the scaled sites). Scatter off a line of less than about a billionth of the
+#: layout's size carries no usable information on the missing term, and the margin to float
+#: round-off (~1e-16) is wide, so the decision does not hang on the order of operations.
+RANK_RTOL: Final = 1e-9
+#: Site spread below this fraction of the coordinates' magnitude is float round-off of the mean:
+#: all sites are taken to coincide.
+SPREAD_RTOL: Final = 1e-12
+NO_DOF_NOTE: Final = "no residual degrees of freedom: sigma reported as 0"
+#: Fewest measurements of one layout worth a shared operator: below this, the per-layout Python
+#: work (pseudo-inverse, gathers) costs more than the batched orthogonalisation it replaces.
+MIN_SHARED: Final = 8
+
+
+class Solution(NamedTuple):
+    """Fits of g measurements of n sites, before residual statistics.
+
+    terms (g, 8) about the origin; choice (g,) index into ``MODELS``; notes per measurement;
+    rx, ry (g, n) residuals.
+    """
+
+    terms: FloatArray
+    choice: IntArray
+    notes: list[str | None]
+    rx: FloatArray
+    ry: FloatArray
+
+
+def normalise(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """Centre and scale sites of shape (g, n); return u, v (g, n) and (cx, cy, s) (g, 3)."""
+    cx = x.mean(axis=-1)
+    cy = y.mean(axis=-1)
+    x_lo, x_hi, y_lo, y_hi = x.min(axis=-1), x.max(axis=-1), y.min(axis=-1), y.max(axis=-1)
+    s = np.maximum.reduce([x_hi - cx, cx - x_lo, y_hi - cy, cy - y_lo])
+    magnitude = np.maximum.reduce([np.abs(x_lo), np.abs(x_hi), np.abs(y_lo), np.abs(y_hi)])
+    # Coincident sites (spread only round-off of the mean): scale 1 and exact zero columns, so
+    # the rank rule sees them and drops to translation.
+    coincident = s <= SPREAD_RTOL * magnitude
+    s = np.where(coincident, 1.0, s)
+    keep = np.where(coincident, 0.0, 1.0 / s)[:, np.newaxis]
+    u = (x - cx[:, np.newaxis]) * keep
+    v = (y - cy[:, np.newaxis]) * keep
+    return u, v, np.stack([cx, cy, s], axis=-1)
+
+
+class Orthogonal:
+    """Modified Gram-Schmidt factor of the basis [1, u, v, uv] for g measurements at once.
+
+    Sites are arrays (g, n). u and v are taken in order of decreasing norm (see ``__init__``).
+    ``ok[i]`` (g,) says basis column i keeps a norm above ``RANK_RTOL * sqrt(n)`` after the
+    earlier columns are removed from it: that is the rank rule. Carrying the right-hand sides
+    through the same sweep (``solve``) gives a backward-stable least-squares solution (Bjorck
+    1967, "Solving linear least squares problems by Gram-Schmidt orthogonalization", BIT 7) and
+    the residuals of each nested model on the way.
+    """
+
+    def __init__(self, u: FloatArray, v: FloatArray, k: int) -> None:
+        g, n = u.shape
+        self.k = k
+        # Larger of u, v first: for a 2x2 triangular factor [[a, b], [0, c]] with b^2 + c^2 <=
+        # a^2, sigma_min >= c / sqrt(2), so the diagonal test tracks the singular values.
+        self.swap = np.einsum("gn,gn->g", v, v) > np.einsum("gn,gn->g", u, u)
+        if self.swap.all() or not self.swap.any():
+            first, second = (v, u) if self.swap.any() else (u, v)
+        else:
+            first = np.where(self.swap[:, np.newaxis], v, u)
+            second = np.where(self.swap[:, np.newaxis], u, v)
+        cols = [first, second, u * v] if k == 4 else [first, second][: k - 1]
+        limit = RANK_RTOL * np.sqrt(n)
+        self.ok: list[BoolArray] = [np.ones(g, dtype=bool)]
+        #: Orthogonal columns w_i (i >= 1), 1 / (w_i . w_i) (0 where not ok), and
+        #: mu[i][j] = coefficient of w_i in basis column j > i (level 0 is the ones column).
+        self.w: dict[int, FloatArray] = {}
+        self.inv_ww: dict[int, FloatArray] = {}
+        self.mu: list[dict[int, FloatArray]] = [{}]
+        for j, c in enumerate(cols, start=1):
+            self.mu[0][j] = c.mean(axis=1)
+            cols[j - 1] = c - self.mu[0][j][:, np.newaxis]
+        for i in range(1, k):
+            w = cols[i - 1]
+            ww = np.einsum("gn,gn->g", w, w)
+            ok = np.sqrt(ww) > limit
+            inv = np.where(ok, 1.0 / np.where(ok, ww, 1.0), 0.0)
+            self.ok.append(ok)
+            self.w[i] = w
+            self.inv_ww[i] = inv
+            self.mu.append({})
+            for j in range(i + 1, k):
+                self.mu[i][j] = np.einsum("gn,gn->g", w, cols[j - 1]) * inv
+                cols[j - 1] = cols[j - 1] - self.mu[i][j][:, np.newaxis] * w
+
+    def solve(self, rhs: list[FloatArray], choice: IntArray) -> tuple[FloatArray, list[FloatArray]]:
+        """Least squares of each right-hand side (g, n) on the model ``choice`` (g,) picks.
+
+        Returns coefficients of [1, u, v, uv] (g, 4, len(rhs)) and the residuals, one (g, n)
+        array per right-hand side.
+        """
+        g = choice.size
+        k_of = np.array([N_BASIS[m] for m in MODELS])[choice]
+        used = sorted(set(k_of.tolist()))
+        coef = np.zeros((g, 4, len(rhs)))
+        residuals = []
+        buffer = np.empty(rhs[0].shape)
+        for a, d in enumerate(rhs):
+            z = [d.mean(axis=1)]
+            r = d - z[0][:, np.newaxis]
+            single = len(used) == 1  # the usual case: r itself becomes the residual
+            out = r if single else np.empty_like(r)
+            if 1 in used and not single:
+                out[k_of == 1] = r[k_of == 1]
+            for i in range(1, max(used)):
+                z.append(np.einsum("gn,gn->g", self.w[i], r) * self.inv_ww[i])
+                np.multiply(self.w[i], z[i][:, np.newaxis], out=buffer)
+                r -= buffer
+                if i + 1 in used and not single:  # the (i + 1)-column model's residual is final
+                    out[k_of == i + 1] = r[k_of == i + 1]
+            residuals.append(out)
+            for k in used:
+                # Back substitution on the unit upper triangular factor:
+                # b_i = z_i - sum over j > i of mu_ij b_j.
+                b: list[FloatArray] = [np.zeros(g)] * k
+                for i in range(k - 1, -1, -1):
+                    b[i] = z[i] - sum((self.mu[i][j] * b[j] for j in range(i + 1, k)), np.zeros(g))
+                sel = k_of == k
+                coef[sel, 0, a] = b[0][sel]
+                if k >= 3:
+                    coef[sel, 1, a] = np.where(self.swap, b[2], b[1])[sel]
+                    coef[sel, 2, a] = np.where(self.swap, b[1], b[2])[sel]
+                if k == 4:
+                    coef[sel, 3, a] = b[3][sel]
+        return coef, residuals
+
+
+def k_max(n: int, requested: str) -> int:
+    """Basis columns needed: those of the fullest model that ``n`` sites can possibly carry."""
+    return max(k for k in N_BASIS.values() if k <= min(n, N_BASIS[requested]))
+
+
+def rank_flags(orth: Orthogonal) -> dict[str, BoolArray]:
+    """The rank rule per model: determined when every basis column passed; (g,) each."""
+    flags: dict[str, BoolArray] = {}
+    if orth.k >= 3:
+        flags["linear"] = orth.ok[1] & orth.ok[2]
+    if orth.k == 4:
+        flags["trapezoid"] = flags["linear"] & orth.ok[3]
+    return flags
+
+
+def choose(
+    n: int, requested: str, flags: dict[str, BoolArray], g: int
+) -> tuple[IntArray, list[str | None]]:
+    """Model used for each of g measurements of n sites (index into ``MODELS``) and notes."""
+    choice = np.full(g, len(MODELS) - 1, dtype=np.int64)
+    undecided = np.ones(g, dtype=bool)
+    reasons: dict[int, list[str]] = {}
+    for i in range(MODELS.index(requested), len(MODELS) - 1):
+        name = MODELS[i]
+        if n < N_BASIS[name]:
+            why = f"{name} needs at least {N_BASIS[name]} sites, got {n}"
+            ok = np.zeros(g, dtype=bool)
+        else:
+            why = "sites are collinear" if name == "linear" else "sites do not fix the x*y terms"
+            ok = flags[name]
+        choice[undecided & ok] = i
+        failed = undecided & ~ok
+        if name == "trapezoid" and "linear" in flags:
+            # Collinear sites fail both; say so once, at the linear step.
+            reasons.update({j: [] for j in np.flatnonzero(failed & ~flags["linear"]).tolist()})
+            failed &= flags["linear"]
+        for j in np.flatnonzero(failed).tolist():
+            reasons.setdefault(j, []).append(why)
+        undecided &= ~ok
+    notes: list[str | None] = [None] * g
+    no_dof = [n - N_BASIS[m] <= 0 for m in MODELS]
+    for j in set(reasons) | set(np.flatnonzero(np.array(no_dof)[choice]).tolist()):
+        model = MODELS[int(choice[j])]
+        parts = [*reasons.get(j, []), f"fitted {model}"] if j in reasons else []
+        if no_dof[int(choice[j])]:
+            parts.append(NO_DOF_NOTE)
+        notes[j] = "; ".join(parts)
+    return choice, notes
+
+
+def to_terms(coef: FloatArray, frame: FloatArray) -> FloatArray:
+    """Re-expand centred coefficients about the origin.
+
+    ``coef`` (g, 4, 2): coefficients of [1, u, v, uv] for dx and dy, zero-padded;
+    ``frame`` (g, 3): (cx, cy, s) with u = (x - cx)/s, v = (y - cy)/s. Expanding
+    b0 + b1 u + b2 v + b3 uv in x, y gives
+    c_xy = b3/s^2, c_x = b1/s - b3 cy/s^2, c_y = b2/s - b3 cx/s^2,
+    c_1 = b0 - b1 cx/s - b2 cy/s + b3 cx cy/s^2. Returns term vectors (g, 8).
+    """
+    cx, cy, s = (frame[:, i, np.newaxis] for i in range(3))
+    b0, b1, b2, b3 = (coef[:, i, :] for i in range(4))
+    c_xy = b3 / s**2
+    c_x = b1 / s - c_xy * cy
+    c_y = b2 / s - c_xy * cx
+    c_1 = b0 - b1 * cx / s - b2 * cy / s + c_xy * cx * cy
+    terms = np.empty((coef.shape[0], 8))
+    # x axis basis (1, x, y, xy) -> (Tx, Sx, -Ox, Kx); y axis -> (Ty, Oy, Sy, Ky).
+    terms[:, 0], terms[:, 1] = c_1[:, 0], c_1[:, 1]
+    terms[:, 2], terms[:, 3] = c_x[:, 0], c_y[:, 1]
+    terms[:, 4], terms[:, 5] = -c_y[:, 0], c_x[:, 1]
+    terms[:, 6], terms[:, 7] = c_xy[:, 0], c_xy[:, 1]
+    return terms
+
+
+def _basis(u: FloatArray, v: FloatArray, k: int) -> FloatArray:
+    """The first k columns of [1, u, v, uv] for one layout, u, v (n,); shape (n, k)."""
+    return np.stack([np.ones(u.size), u, v, u * v][:k], axis=-1)
+
+
+# ----------------------------------------------------------------------------- one measurement
+
+
+def solve_one(
+    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+) -> Solution:
+    """One measurement, sites (n,): the batched rank rule, an independent LAPACK solve."""
+    n = x.size
+    u, v, frame = normalise(x[np.newaxis], y[np.newaxis])
+    choice, notes = choose(n, requested, rank_flags(Orthogonal(u, v, k_max(n, requested))), 1)
+    k = N_BASIS[MODELS[int(choice[0])]]
+    design = _basis(u[0], v[0], k)
+    d = np.stack([dx, dy], axis=-1)
+    b, *_ = np.linalg.lstsq(design, d, rcond=None)
+    coef = np.zeros((1, 4, 2))
+    coef[0, :k, :] = b
+    residual = (d - design @ b).T[:, np.newaxis, :]
+    return Solution(to_terms(coef, frame), choice, notes, residual[0], residual[1])
+
+
+# ----------------------------------------------------------------------------- many measurements
+
+
+def _hash_weights(n: int) -> tuple[NDArray[np.uint64], NDArray[np.uint64]]:
+    """Fixed random odd multipliers for hashing the bit patterns of x and y (n,) each."""
+    w = np.random.default_rng(0x0E7A).integers(0, 2**64 - 1, size=(2, n), dtype=np.uint64)
+    w |= np.uint64(1)
+    return w[0], w[1]
+
+
+def shared_layouts(x: FloatArray, y: FloatArray) -> tuple[IntArray, IntArray]:
+    """Layouts that at least ``MIN_SHARED`` measurements of sites (g, n) have in common.
+
+    Returns ``layout`` (g,), the index of each measurement's shared layout or -1, and the row of
+    one measurement with each shared layout. Sites match only when every x and y is the same
+    float (as compared by ``==``): a bit-pattern hash groups candidates in one sort, and each
+    candidate is then compared with its layout's first row, so a hash collision only loses the
+    sharing, never mixes layouts.
+    """
+    g, n = x.shape
+    none = np.full(g, -1, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    if g < MIN_SHARED:
+        return none
+    if (x == x[0]).all() and (y == y[0]).all():  # the usual case: one target grid throughout
+        return np.zeros(g, dtype=np.int64), np.zeros(1, dtype=np.int64)
+    wx, wy = _hash_weights(n)
+    # Unsigned products and sums wrap modulo 2**64: a multiplicative hash of the bit patterns.
+    h = np.einsum("gn,n->g", x.view(np.uint64), wx) + np.einsum("gn,n->g", y.view(np.uint64), wy)
+    _, first, inverse, counts = np.unique(
+        h, return_index=True, return_inverse=True, return_counts=True
+    )
+    candidates = np.flatnonzero(counts[inverse] >= MIN_SHARED)
+    rep = first[inverse[candidates]]
+    same = (x[candidates] == x[rep]).all(axis=1) & (y[candidates] == y[rep]).all(axis=1)
+    members = candidates[same]
+    hashed = inverse[members]
+    keep = np.bincount(hashed, minlength=first.size)[hashed] >= MIN_SHARED
+    members, hashed = members[keep], hashed[keep]
+    used, compact = np.unique(hashed, return_inverse=True)
+    layout = np.full(g, -1, dtype=np.int64)
+    layout[members] = compact
+    return layout, first[used].astype(np.int64)
+
+
+def _solve_batched(
+    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+) -> Solution:
+    """Measurements of sites (g, n), each with its own layout: one orthogonalisation for all."""
+    g, n = x.shape
+    u, v, frame = normalise(x, y)
+    orth = Orthogonal(u, v, k_max(n, requested))
+    choice, notes = choose(n, requested, rank_flags(orth), g)
+    coef, (rx, ry) = orth.solve([dx, dy], choice)
+    return Solution(to_terms(coef, frame), choice, notes, rx, ry)
+
+
+def _solve_shared(
+    x: FloatArray,
+    y: FloatArray,
+    dx: FloatArray,
+    dy: FloatArray,
+    requested: str,
+    layout: IntArray,
+    reps: IntArray,
+    out: Solution,
+) -> None:
+    """Measurements grouped by shared layout (see ``shared_layouts``), arrays (g, n).
+
+    One rank decision and one least-squares operator per layout, applied to all its measurements
+    at once; writes their rows of ``out``.
+    """
+    g, n = x.shape
+    u, v, frame = normalise(x[reps], y[reps])
+    orth = Orthogonal(u, v, k_max(n, requested))
+    choice, notes = choose(n, requested, rank_flags(orth), reps.size)
+    groups: list[slice | IntArray]
+    if reps.size == 1 and layout.min() == 0:
+        groups = [slice(None)]  # every row: views, no gathers
+    else:
+        members = np.flatnonzero(layout >= 0)
+        order = members[np.argsort(layout[members], kind="stable")]
+        groups = list(np.split(order, np.cumsum(np.bincount(layout[members]))[:-1]))
+    for i, rows in enumerate(groups):
+        k = N_BASIS[MODELS[int(choice[i])]]
+        basis = _basis(u[i], v[i], k)
+        # Pseudo-inverse by SVD, the factorisation lstsq uses in solve_one; rows of d @ op_t
+        # are the least-squares coefficients of each measurement.
+        op_t = np.linalg.pinv(basis).T
+        coef = np.zeros((g if isinstance(rows, slice) else rows.size, 4, 2))
+        for a, (d, r) in enumerate(((dx, out.rx), (dy, out.ry))):
+            d_rows = d[rows]
+            b = d_rows @ op_t
+            coef[:, :k, a] = b
+            if isinstance(rows, slice):  # residual straight into the output: no temporary
+                np.matmul(b, basis.T, out=r)
+                np.subtract(d_rows, r, out=r)
+            else:
+                r[rows] = d_rows - b @ basis.T
+        out.terms[rows] = to_terms(coef, np.broadcast_to(frame[i], (coef.shape[0], 3)))
+        out.choice[rows] = choice[i]
+        if isinstance(rows, slice):
+            out.notes[:] = [notes[i]] * g
+        else:
+            for j in rows.tolist():
+                out.notes[j] = notes[i]
+
+
+def solve_group(
+    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+) -> Solution:
+    """Measurements with the same site count n, arrays (g, n): shared layouts, then the rest."""
+    g, n = x.shape
+    layout, reps = shared_layouts(x, y)
+    if reps.size == 0:
+        return _solve_batched(x, y, dx, dy, requested)
+    out = Solution(
+        np.empty((g, 8)),
+        np.empty(g, dtype=np.int64),
+        [None] * g,
+        np.empty((g, n)),
+        np.empty((g, n)),
+    )
+    _solve_shared(x, y, dx, dy, requested, layout, reps, out)
+    rest = np.flatnonzero(layout < 0)
+    if rest.size:
+        part = _solve_batched(x[rest], y[rest], dx[rest], dy[rest], requested)
+        out.terms[rest] = part.terms
+        out.choice[rest] = part.choice
+        out.rx[rest] = part.rx
+        out.ry[rest] = part.ry
+        for j, note in zip(rest.tolist(), part.notes, strict=True):
+            out.notes[j] = note
+    return out
