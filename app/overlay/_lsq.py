@@ -17,9 +17,9 @@ Three solves share that rank rule:
 
 - ``solve_one``: one measurement, LAPACK least squares (``numpy.linalg.lstsq``).
 - ``solve_group``, layouts seen at least ``MIN_SHARED`` times in the group: a tool measures the
-  same target grid every time, so measurements with bit-identical x and y share one rank
-  decision and one least-squares operator (the pseudo-inverse of the basis), applied to all
-  their right-hand sides with one matrix product.
+  same target grid every time, so measurements whose x and y are exactly the same share one
+  rank decision and one least-squares operator (the pseudo-inverse of the basis), applied to
+  all their right-hand sides by matrix products.
 - ``solve_group``, every other measurement: the orthogonalisation runs on all of them at once,
   right-hand sides included (``Orthogonal``).
 """
@@ -49,23 +49,46 @@ RANK_RTOL: Final = 1e-9
 #: all sites are taken to coincide.
 SPREAD_RTOL: Final = 1e-12
 NO_DOF_NOTE: Final = "no residual degrees of freedom: sigma reported as 0"
-#: Fewest measurements of one layout worth a shared operator: below this, the per-layout Python
-#: work (pseudo-inverse, gathers) costs more than the batched orthogonalisation it replaces.
-MIN_SHARED: Final = 8
+#: Fewest measurements of one layout worth a shared operator: below about this many (measured at
+#: 49 sites), the per-layout work, a couple of dozen small numpy calls, costs more than the
+#: batched orthogonalisation of the same measurements.
+MIN_SHARED: Final = 16
+#: Rows per matrix product on a shared layout. Blocks stay in cache, and stay below the size at
+#: which OpenBLAS hands a product this thin to its thread pool: waking the pool costs more than
+#: the product, several milliseconds per call when the machine is busy.
+_BLOCK: Final = 1024
 
 
 class Solution(NamedTuple):
-    """Fits of g measurements of n sites, before residual statistics.
+    """Fits of g measurements and the sums their residual statistics need.
 
     terms (g, 8) about the origin; choice (g,) index into ``MODELS``; notes per measurement;
-    rx, ry (g, n) residuals.
+    residual mean and sum of squares per axis (2, g); the site of the largest residual vector
+    and its squared length (g,). Residuals are reduced to these where they are made, so the
+    shared-layout solve works through a group block by block and never holds its residuals.
     """
 
     terms: FloatArray
     choice: IntArray
     notes: list[str | None]
-    rx: FloatArray
-    ry: FloatArray
+    mean: FloatArray
+    sum_sq: FloatArray
+    worst: IntArray
+    worst_sq: FloatArray
+
+
+def summarise(
+    rx: FloatArray, ry: FloatArray
+) -> tuple[FloatArray, FloatArray, IntArray, FloatArray]:
+    """The residual fields of ``Solution`` from residuals rx, ry (g, n); overwrites both."""
+    n = rx.shape[1]
+    # einsum sums rows of a few dozen values about twice as fast as ndarray.sum or mean.
+    mean = np.stack([np.einsum("gn->g", rx), np.einsum("gn->g", ry)]) / n
+    sum_sq = np.stack([np.einsum("gn,gn->g", rx, rx), np.einsum("gn,gn->g", ry, ry)])
+    # Squared length in place (np.hypot is several times slower and not needed here).
+    length_sq = np.add(np.square(rx, out=rx), np.square(ry, out=ry), out=rx)
+    worst = length_sq.argmax(axis=1)
+    return mean, sum_sq, worst, length_sq[np.arange(rx.shape[0]), worst]
 
 
 def normalise(x: FloatArray, y: FloatArray) -> tuple[FloatArray, FloatArray, FloatArray]:
@@ -269,7 +292,7 @@ def solve_one(
     coef = np.zeros((1, 4, 2))
     coef[0, :k, :] = b
     residual = (d - design @ b).T[:, np.newaxis, :]
-    return Solution(to_terms(coef, frame), choice, notes, residual[0], residual[1])
+    return Solution(to_terms(coef, frame), choice, notes, *summarise(residual[0], residual[1]))
 
 
 # ----------------------------------------------------------------------------- many measurements
@@ -286,10 +309,11 @@ def shared_layouts(x: FloatArray, y: FloatArray) -> tuple[IntArray, IntArray]:
     """Layouts that at least ``MIN_SHARED`` measurements of sites (g, n) have in common.
 
     Returns ``layout`` (g,), the index of each measurement's shared layout or -1, and the row of
-    one measurement with each shared layout. Sites match only when every x and y is the same
-    float (as compared by ``==``): a bit-pattern hash groups candidates in one sort, and each
-    candidate is then compared with its layout's first row, so a hash collision only loses the
-    sharing, never mixes layouts.
+    one measurement with each shared layout. Measurements share a layout only when every x and
+    y compares equal (``==``): a hash of the bit patterns groups candidates in one sort, and each
+    is then compared with its group's first row, so a hash collision only loses the sharing,
+    never mixes layouts. (Layouts that differ only in the sign of a zero may or may not be
+    grouped; the arithmetic is the same either way.)
     """
     g, n = x.shape
     none = np.full(g, -1, dtype=np.int64), np.zeros(0, dtype=np.int64)
@@ -325,7 +349,7 @@ def _solve_batched(
     orth = Orthogonal(u, v, k_max(n, requested))
     choice, notes = choose(n, requested, rank_flags(orth), g)
     coef, (rx, ry) = orth.solve([dx, dy], choice)
-    return Solution(to_terms(coef, frame), choice, notes, rx, ry)
+    return Solution(to_terms(coef, frame), choice, notes, *summarise(rx, ry))
 
 
 def _solve_shared(
@@ -347,43 +371,66 @@ def _solve_shared(
     u, v, frame = normalise(x[reps], y[reps])
     orth = Orthogonal(u, v, k_max(n, requested))
     choice, notes = choose(n, requested, rank_flags(orth), reps.size)
-    groups: list[slice | IntArray]
+    k_of = np.array([N_BASIS[m] for m in MODELS])[choice]
+    # Pseudo-inverses by SVD, the factorisation lstsq uses in solve_one, stacked over the
+    # layouts of each basis size; rows of d @ op_t are each measurement's coefficients.
+    columns = np.stack([np.ones_like(u), u, v, u * v], axis=-1)  # (layouts, n, 4)
+    bases: dict[int, FloatArray] = {}
+    ops_t: dict[int, FloatArray] = {}
+    for k in np.unique(k_of).tolist():
+        same_k = np.flatnonzero(k_of == k)
+        basis_k = columns[same_k, :, :k]
+        for i, basis, op in zip(same_k.tolist(), basis_k, np.linalg.pinv(basis_k), strict=True):
+            bases[i], ops_t[i] = basis, op.T
+    groups: list[IntArray | None]  # rows of each layout; None: all rows, as views (no gathers)
     if reps.size == 1 and layout.min() == 0:
-        groups = [slice(None)]  # every row: views, no gathers
+        groups = [None]
+        members: IntArray | slice = slice(None)
     else:
         members = np.flatnonzero(layout >= 0)
         order = members[np.argsort(layout[members], kind="stable")]
         groups = list(np.split(order, np.cumsum(np.bincount(layout[members]))[:-1]))
+    coef = np.zeros((g, 4, 2))
+    # Residuals x, y and the fitted values of one block of rows: kept in cache and reduced to
+    # their sums there, never stored for the whole group.
+    scratch = np.empty((3, _BLOCK, n))
     for i, rows in enumerate(groups):
-        k = N_BASIS[MODELS[int(choice[i])]]
-        basis = _basis(u[i], v[i], k)
-        # Pseudo-inverse by SVD, the factorisation lstsq uses in solve_one; rows of d @ op_t
-        # are the least-squares coefficients of each measurement.
-        op_t = np.linalg.pinv(basis).T
-        coef = np.zeros((g if isinstance(rows, slice) else rows.size, 4, 2))
-        for a, (d, r) in enumerate(((dx, out.rx), (dy, out.ry))):
-            d_rows = d[rows]
-            b = d_rows @ op_t
-            coef[:, :k, a] = b
-            if isinstance(rows, slice):  # residual straight into the output: no temporary
-                np.matmul(b, basis.T, out=r)
-                np.subtract(d_rows, r, out=r)
-            else:
-                r[rows] = d_rows - b @ basis.T
-        out.terms[rows] = to_terms(coef, np.broadcast_to(frame[i], (coef.shape[0], 3)))
-        out.choice[rows] = choice[i]
-        if isinstance(rows, slice):
-            out.notes[:] = [notes[i]] * g
-        else:
-            for j in rows.tolist():
-                out.notes[j] = notes[i]
+        k, basis, op_t = int(k_of[i]), bases[i], ops_t[i]
+        size = g if rows is None else rows.size
+        for lo in range(0, size, _BLOCK):
+            sel: slice | IntArray = (
+                slice(lo, lo + _BLOCK) if rows is None else rows[lo : lo + _BLOCK]
+            )
+            m = min(_BLOCK, size - lo)
+            for a, d in enumerate((dx, dy)):
+                r = scratch[a, :m]
+                src = d[sel] if rows is None else np.take(d, rows[lo : lo + m], axis=0, out=r)
+                # Centre first, as the batched sweep does: the ones column takes the mean
+                # exactly, and data far from zero (a large translation) then cancel in the
+                # residual only by what varies over the layout.
+                mean = np.einsum("gn->g", src) / n
+                np.subtract(src, mean[:, np.newaxis], out=r)
+                b = r @ op_t
+                r -= np.matmul(b, basis.T, out=scratch[2, :m])
+                b[:, 0] += mean
+                coef[sel, :k, a] = b
+            summary = summarise(scratch[0, :m], scratch[1, :m])
+            out.mean[:, sel], out.sum_sq[:, sel], out.worst[sel], out.worst_sq[sel] = summary
+    at = layout[members]
+    out.terms[members] = to_terms(coef[members], frame[at])
+    out.choice[members] = choice[at]
+    if groups[0] is None:
+        out.notes[:] = [notes[0]] * g
+    else:
+        for j, i in zip(np.flatnonzero(layout >= 0).tolist(), at.tolist(), strict=True):
+            out.notes[j] = notes[i]
 
 
 def solve_group(
     x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
 ) -> Solution:
     """Measurements with the same site count n, arrays (g, n): shared layouts, then the rest."""
-    g, n = x.shape
+    g = x.shape[0]
     layout, reps = shared_layouts(x, y)
     if reps.size == 0:
         return _solve_batched(x, y, dx, dy, requested)
@@ -391,8 +438,10 @@ def solve_group(
         np.empty((g, 8)),
         np.empty(g, dtype=np.int64),
         [None] * g,
-        np.empty((g, n)),
-        np.empty((g, n)),
+        np.empty((2, g)),
+        np.empty((2, g)),
+        np.empty(g, dtype=np.int64),
+        np.empty(g),
     )
     _solve_shared(x, y, dx, dy, requested, layout, reps, out)
     rest = np.flatnonzero(layout < 0)
@@ -400,8 +449,10 @@ def solve_group(
         part = _solve_batched(x[rest], y[rest], dx[rest], dy[rest], requested)
         out.terms[rest] = part.terms
         out.choice[rest] = part.choice
-        out.rx[rest] = part.rx
-        out.ry[rest] = part.ry
+        out.mean[:, rest] = part.mean
+        out.sum_sq[:, rest] = part.sum_sq
+        out.worst[rest] = part.worst
+        out.worst_sq[rest] = part.worst_sq
         for j, note in zip(rest.tolist(), part.notes, strict=True):
             out.notes[j] = note
     return out

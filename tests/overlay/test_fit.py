@@ -7,6 +7,7 @@ import pytest
 from numpy.testing import assert_allclose
 from skimage.transform import AffineTransform
 
+from app.overlay import _lsq
 from app.overlay.errors import OverlayInputError
 from app.overlay.fit import OverlayFit, fit_many, fit_measurement
 from app.overlay.model import design_matrix, evaluate
@@ -34,8 +35,17 @@ def lstsq_terms(pts: np.ndarray, dx: np.ndarray, dy: np.ndarray, n_terms: int) -
     return np.concatenate([sol, np.zeros(8 - n_terms)])
 
 
-def assert_same_fit(a: OverlayFit, b: OverlayFit, reach: float = 1.0, rtol: float = 1e-9) -> None:
-    """Equal to ``rtol``: terms compared by their contribution at distance ``reach`` (mm)."""
+def assert_same_fit(
+    a: OverlayFit,
+    b: OverlayFit,
+    reach: float = 1.0,
+    rtol: float = 1e-9,
+    residual_atol: float | None = None,
+) -> None:
+    """Equal to ``rtol``: terms compared by their contribution at distance ``reach`` (mm).
+
+    Residual statistics to ``residual_atol``, by default 1e-9 of the largest residual.
+    """
     assert (a.model, a.requested, a.note, a.fitted, a.n_sites) == (
         b.model,
         b.requested,
@@ -47,7 +57,7 @@ def assert_same_fit(a: OverlayFit, b: OverlayFit, reach: float = 1.0, rtol: floa
     scale = np.array([1, 1, r, r, r, r, r * r, r * r])
     size = max(1.0, float(np.abs(b.terms * scale).max()))
     assert_allclose(a.terms * scale, b.terms * scale, rtol=0, atol=rtol * size)
-    atol = 1e-9 * max(1.0, b.max_residual_um)
+    atol = 1e-9 * max(1.0, b.max_residual_um) if residual_atol is None else residual_atol
     for name in ("mean_um", "sigma_um", "m3s_um"):
         assert_allclose(getattr(a, name), getattr(b, name), rtol=1e-9, atol=atol)
     assert_allclose(a.max_residual_um, b.max_residual_um, rtol=1e-9, atol=atol)
@@ -398,3 +408,127 @@ def test_mismatched_lengths_and_no_sites() -> None:
         fit_measurement(np.zeros(3), np.zeros(3), np.zeros(3), np.zeros(2))
     with pytest.raises(OverlayInputError, match="at least one site"):
         fit_measurement(np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0))
+
+
+# ------------------------------------------------------------------------------ shared layouts
+
+
+def shared_layout_batch(seed: int) -> list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]:
+    """Measurements on shared layouts (some degenerate) and on layouts of their own, shuffled."""
+    rng = np.random.default_rng(seed)
+    copies = _lsq.MIN_SHARED
+    line = np.linspace(-200.0, 200.0, 9)
+    square = grid(3, 3)
+    near = square.copy()
+    near[4, 0] = np.nextafter(near[4, 0], 1.0)  # one ulp from the 3x3 grid: not the same layout
+    negative_zero = square.copy()
+    negative_zero[4] = -0.0  # equal to the grid by ==, different bits: either way is correct
+    layouts = [
+        (square, copies + 3),
+        (near, copies),
+        (negative_zero, copies),
+        (square + 1e6, copies),  # huge coordinates
+        (grid(7, 7), 2 * copies),
+        (np.stack([line, 0.5 * line + 3.0], axis=-1), copies),  # collinear
+        (np.stack([np.full(9, 42.0), line], axis=-1), copies),  # vertical line
+        (np.full((9, 2), 5.0), copies),  # coincident
+        (np.stack([np.r_[line, np.zeros(9)], np.r_[np.zeros(9), line]], -1), copies),  # x*y = 0
+        (np.array([[-100.0, -50.0], [120.0, -40.0], [0.0, 150.0]]), copies),  # 3 sites, no dof
+        (np.array([[10.0, 20.0]]), copies),  # one site
+        (np.array([[-100.0, 0.0], [100.0, 50.0]]), copies),  # two sites
+        (grid(3, 3) * 0.5, copies - 1),  # repeated, but too few times to share an operator
+    ]
+    batch = []
+    for pts, times in layouts:
+        for _ in range(times):
+            dx, dy = displaced(TERMS, pts, noise=0.5, seed=int(rng.integers(1 << 30)))
+            batch.append((pts[:, 0].copy(), pts[:, 1].copy(), dx, dy))
+    for n in (9, 9, 49, 18, 3, 1, 2):  # layouts of their own, in the same site-count groups
+        pts = rng.uniform(-250.0, 250.0, size=(n, 2))
+        batch.append((pts[:, 0], pts[:, 1], *displaced(TERMS, pts, noise=0.5, seed=n)))
+    order = rng.permutation(len(batch))
+    return [batch[i] for i in order]
+
+
+@pytest.mark.parametrize("trapezoid", [False, True])
+@pytest.mark.parametrize("seed", [21, 22])
+def test_fit_many_shared_layouts_equal_fit_measurement(trapezoid: bool, seed: int) -> None:
+    batch = shared_layout_batch(seed)
+    cat = [np.concatenate([m[i] for m in batch]) for i in range(4)]
+    many = fit_many(*cat, [m[0].size for m in batch], trapezoid=trapezoid)
+    assert len(many) == len(batch)
+    for got, m in zip(many, batch, strict=True):
+        one = fit_measurement(*m, trapezoid=trapezoid)
+        reach = float(np.abs(np.concatenate(m[:2])).max())
+        if reach < 1e3:
+            assert_same_fit(got, one, reach=reach)
+            assert_same_worst_site(got, one, *m)
+        else:
+            # Terms: see test_fit_many_equals_fit_measurement. Residuals: fit_measurement solves
+            # the data uncentred (~4e6 um here), so its residuals carry round-off of that size.
+            size = float(np.abs(np.concatenate(m[2:])).max())
+            assert_same_fit(got, one, reach=reach, rtol=1e-7, residual_atol=1e-14 * size)
+    assert {f.model for f in many} == {
+        "translation",
+        "linear",
+        "trapezoid" if trapezoid else "linear",
+    }
+
+
+def test_shared_layouts_are_exact() -> None:
+    """The 9-site group of the batch above: which measurements share an operator."""
+    batch = [m for m in shared_layout_batch(21) if m[0].size == 9]
+    x, y = (np.stack([m[i] for m in batch]) for i in range(2))
+    layout, reps = _lsq.shared_layouts(x, y)
+    # 3x3 grid, one ulp off it, huge, collinear, vertical, coincident; the grid's twin with a -0.0
+    # site compares equal, so it may share the grid's operator (same arithmetic) or have its own.
+    assert reps.size in (6, 7)
+    for j, r in enumerate(reps.tolist()):
+        same = np.flatnonzero(layout == j)
+        assert r in same and same.size >= _lsq.MIN_SHARED
+        assert np.all(x[same] == x[r]) and np.all(y[same] == y[r])
+    # The rest (own layouts, the grid repeated too few times) have no shared operator.
+    assert np.count_nonzero(layout < 0) == 2 + _lsq.MIN_SHARED - 1
+
+
+def test_hash_collisions_do_not_mix_layouts(monkeypatch: pytest.MonkeyPatch) -> None:
+    # Zero weights hash every layout alike: sharing then rests on the exact comparison alone.
+    monkeypatch.setattr(
+        _lsq, "_hash_weights", lambda n: (np.zeros(n, np.uint64), np.zeros(n, np.uint64))
+    )
+    batch = [m for m in shared_layout_batch(22) if m[0].size == 9]
+    square = grid(3, 3)
+    on_grid = [
+        np.array_equal(m[0], square[:, 0]) and np.array_equal(m[1], square[:, 1]) for m in batch
+    ]
+    batch.insert(0, batch.pop(on_grid.index(True)))  # the one candidate layout: the 3x3 grid
+    on_grid.insert(0, on_grid.pop(on_grid.index(True)))
+    x, y = (np.stack([m[i] for m in batch]) for i in range(2))
+    layout, reps = _lsq.shared_layouts(x, y)
+    # The grid and its -0.0 twin (equal by ==, so the same arithmetic); nothing else.
+    assert reps.tolist() == [0]
+    assert np.count_nonzero(layout == 0) == sum(on_grid) and np.all(layout[~np.array(on_grid)] < 0)
+    cat = [np.concatenate([m[i] for m in batch]) for i in range(4)]
+    for got, m in zip(fit_many(*cat, [9] * len(batch)), batch, strict=True):
+        one = fit_measurement(*m)
+        if float(np.abs(m[0]).max()) < 1e3:
+            assert_same_fit(got, one, reach=250.0)
+        else:  # see test_fit_many_shared_layouts_equal_fit_measurement
+            size = float(np.abs(np.concatenate(m[2:])).max())
+            assert_same_fit(got, one, reach=1e6, rtol=1e-7, residual_atol=1e-14 * size)
+
+
+def test_fast_results_match_constructor() -> None:
+    # fit._results sets the slots directly instead of calling __init__: nothing to skip, and the
+    # objects equal the constructor's.
+    assert not hasattr(OverlayFit, "__post_init__")
+    pts = grid()
+    dx, dy = displaced(TERMS, pts, noise=0.3)
+    batch = mixed_batch(11)
+    cat = [np.concatenate([m[i] for m in batch]) for i in range(4)]
+    fits = fit_many(*cat, [m[0].size for m in batch], trapezoid=True)
+    for f in [fit_measurement(pts[:, 0], pts[:, 1], dx, dy), *fits]:
+        values = {name: getattr(f, name) for name in OverlayFit.__dataclass_fields__}
+        rebuilt = OverlayFit(**values)
+        assert all(getattr(rebuilt, k) is v for k, v in values.items())
+        assert repr(rebuilt) == repr(f)
