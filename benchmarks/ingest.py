@@ -1,0 +1,349 @@
+"""CSV import throughput: app.services.imports.import_csv end to end against a bare insert.
+
+Target (the issue): 1,000,000 site rows into SQLite end to end (parse, validate, fit, store
+sites, update panel states) at >= 0.33 of a bare sqlite3 executemany of the same rows into one
+table, peak memory under 500 MB; the same against PostgreSQL, measured against a bare psycopg
+COPY of the same rows.
+
+    .venv/bin/python benchmarks/ingest.py                 # 1,000,776 rows, SQLite + PostgreSQL
+    .venv/bin/python benchmarks/ingest.py --rows 200000 --skip-postgres --profile
+
+Each database is a throwaway one (SQLite file in a temp dir; PostgreSQL CREATE DATABASE with a
+random name, dropped WITH (FORCE) at the end), migrated with app.store.migrate.upgrade. The
+import runs in a child process (multiprocessing, spawn) so that its peak RSS is the import's
+alone. Baselines time only the insert (+ commit) of rows pre-parsed with the csv module into
+typed tuples, best of --baseline-runs; a best-of baseline makes the ratio conservative.
+Prints figures; asserts nothing.
+"""
+
+from __future__ import annotations
+
+import argparse
+import cProfile
+import csv
+import io
+import math
+import multiprocessing as mp
+import pstats
+import sqlite3
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+import psycopg
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+import _data
+from _data import ROWS_PER_PANEL, Timer, fmt_rate
+
+TARGET_RATIO = 0.33
+TARGET_MB = 500.0
+STAGES = (
+    "parse: pandas.read_csv chunks",
+    "load panels + current measurements",
+    "validate: row checks",
+    "group rows into measurements",
+    "validate: per-measurement checks",
+    "write (fit + build rows + bulk insert)",
+    "  of which fit_many",
+    "  of which bulk.insert measurements",
+    "  of which bulk.insert sites",
+    "  of which bulk.insert fits",
+    "panel states (_refresh_touched)",
+    "  of which history.learn",
+    "  of which state.current_layers_many",
+    "  of which state.refresh",
+    "    of which forecast_final",
+    "  of which holds.apply_automatic",
+    "commit (after panel states)",
+)
+
+
+# ----------------------------------------------------------------------------- end to end
+
+def _instrument(timer: Timer, marks: dict[str, float]) -> None:
+    """Light wrappers (a few hundred calls per run) that split the import's time by stage."""
+    from app.services import holds, imports, state
+    from app.store import bulk
+
+    original_chunks = imports._chunks
+
+    def chunks(*args: Any, **kwargs: Any) -> Any:
+        it = original_chunks(*args, **kwargs)
+        while True:
+            t = time.perf_counter()
+            try:
+                chunk = next(it)
+            except StopIteration:
+                timer.add("parse: pandas.read_csv chunks", time.perf_counter() - t)
+                return
+            timer.add("parse: pandas.read_csv chunks", time.perf_counter() - t)
+            yield chunk
+
+    imports._chunks = chunks
+    timer.wrap(imports, "_load_panels", "load panels + current measurements")
+    timer.wrap(imports, "_row_checks", "validate: row checks")
+    timer.wrap(imports, "_assign_groups", "group rows into measurements")
+    timer.wrap(imports, "_group_checks", "validate: per-measurement checks")
+    timer.wrap(imports, "_write", "write (fit + build rows + bulk insert)")
+    timer.wrap(imports, "fit_many", "  of which fit_many")
+    original_insert = bulk.insert
+
+    def insert(session: Any, table: Any, rows: Any) -> None:
+        t = time.perf_counter()
+        try:
+            original_insert(session, table, rows)
+        finally:
+            timer.add(f"  of which bulk.insert {table.name}", time.perf_counter() - t)
+
+    bulk.insert = insert
+    original_refresh = imports._refresh_touched
+
+    def refresh_touched(*args: Any, **kwargs: Any) -> None:
+        t = time.perf_counter()
+        try:
+            original_refresh(*args, **kwargs)
+        finally:
+            marks["refreshed"] = time.perf_counter()
+            timer.add("panel states (_refresh_touched)", marks["refreshed"] - t)
+
+    imports._refresh_touched = refresh_touched
+    timer.wrap(imports, "learn", "  of which history.learn")
+    timer.wrap(state, "current_layers_many", "  of which state.current_layers_many")
+    timer.wrap(state, "refresh", "  of which state.refresh")
+    timer.wrap(state, "forecast_final", "    of which forecast_final")
+    timer.wrap(holds, "apply_automatic", "  of which holds.apply_automatic")
+
+
+def import_child(url: str, path: str, profile: bool, queue: Any) -> None:
+    """Runs in a spawned process: one import_csv, its time, breakdown and peak RSS."""
+    from app.db import Database
+    from app.services import imports
+
+    timer, marks = Timer(), {}
+    if not profile:  # the profiled run goes unwrapped, so that the profile shows the app only
+        _instrument(timer, marks)
+    db = Database(url)
+    rss_before = _data.peak_rss_mb()
+    profiler = cProfile.Profile() if profile else None
+    with open(path, "rb") as stream:
+        cpu0 = time.process_time()
+        t0 = time.perf_counter()
+        if profiler:
+            profiler.enable()
+        result = imports.import_csv(db=db, stream=stream, name=Path(path).name,
+                                    principal_label="bench")
+        if profiler:
+            profiler.disable()
+        t1 = time.perf_counter()
+        cpu = time.process_time() - cpu0
+    if "refreshed" in marks:
+        timer.add("commit (after panel states)", t1 - marks["refreshed"])
+    out = io.StringIO()
+    if profiler:
+        pstats.Stats(profiler, stream=out).sort_stats("cumulative").print_stats(15)
+    db.dispose()
+    queue.put({
+        "seconds": t1 - t0, "cpu_s": cpu, "rows": result.rows, "measurements": result.measurements,
+        "panels": result.panels, "rss_before_mb": rss_before, "rss_peak_mb": _data.peak_rss_mb(),
+        "breakdown": [(k, timer.seconds[k], timer.calls[k]) for k in timer.seconds],
+        "profile": out.getvalue(),
+    })
+
+
+def end_to_end(url: str, path: Path, profile: bool) -> dict[str, Any]:
+    ctx = mp.get_context("spawn")
+    queue = ctx.Queue()
+    proc = ctx.Process(target=import_child, args=(url, str(path), profile, queue))
+    proc.start()
+    while True:
+        try:
+            result: dict[str, Any] = queue.get(timeout=5)
+            break
+        except Exception:  # queue.Empty: still working, unless it died
+            if not proc.is_alive():
+                raise SystemExit(f"import child failed with exit code {proc.exitcode}") from None
+    proc.join()
+    return result
+
+
+def repeated(make_url: Any, names: list[str], path: Path, runs: int, profile: bool
+             ) -> tuple[dict[str, Any], list[float], float]:
+    """``runs`` timed imports, each into a fresh store from ``make_url()`` (a context manager
+    giving a URL), then one profiled import if asked. Returns the fastest run (its breakdown,
+    the profile text of the profiled run), all run times and the registration time."""
+    results, setup = [], 0.0
+    for i in range(runs + (1 if profile else 0)):
+        with make_url(i) as url:
+            db = _data.migrated(url)
+            t = time.perf_counter()
+            _data.register(db, names)
+            setup = time.perf_counter() - t
+            db.dispose()
+            results.append(end_to_end(url, path, profile=i == runs))
+    timed = results[:runs]
+    best = dict(min(timed, key=lambda r: r["seconds"]))
+    best["rss_peak_mb"] = max(r["rss_peak_mb"] for r in results)
+    best["profile"] = results[-1]["profile"] if profile else ""
+    return best, [r["seconds"] for r in timed], setup
+
+
+# ----------------------------------------------------------------------------- baselines
+
+def parse_rows(path: Path) -> tuple[list[tuple[Any, ...]], float]:
+    """The CSV as typed tuples (csv module), and the time it took."""
+    t = time.perf_counter()
+    with path.open(newline="", encoding="utf-8") as f:
+        reader = csv.reader(f)
+        next(reader)
+        rows = [(p, int(k), s, fr, tl, at, float(x), float(y), float(dx), float(dy))
+                for p, k, s, fr, tl, at, x, y, dx, dy in reader]
+    return rows, time.perf_counter() - t
+
+
+def sqlite_baseline(tmp: Path, rows: list[tuple[Any, ...]], runs: int) -> list[float]:
+    """Times of executemany + commit into one plain table of a fresh WAL file."""
+    times = []
+    for i in range(runs):
+        conn = sqlite3.connect(tmp / f"baseline{i}.db", isolation_level=None)
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA synchronous=NORMAL")
+        conn.execute("CREATE TABLE rows (panel TEXT, layer INTEGER, side TEXT, frame TEXT, "
+                     "tool TEXT, measured_at TEXT, x_mm REAL, y_mm REAL, dx_um REAL, "
+                     "dy_um REAL)")
+        t = time.perf_counter()
+        conn.execute("BEGIN IMMEDIATE")
+        conn.executemany("INSERT INTO rows VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", rows)
+        conn.execute("COMMIT")
+        times.append(time.perf_counter() - t)
+        conn.close()
+        for suffix in ("", "-wal", "-shm"):
+            (tmp / f"baseline{i}.db{suffix}").unlink(missing_ok=True)
+    return times
+
+
+def pg_baseline(url: str, rows: list[tuple[Any, ...]], runs: int) -> list[float]:
+    """Times of a psycopg COPY (write_row) + commit into one plain table."""
+    conninfo = url.replace("postgresql+psycopg://", "postgresql://")
+    times = []
+    with psycopg.connect(conninfo) as conn:
+        for i in range(runs):
+            table = f"baseline_rows_{i}"
+            conn.execute(f"CREATE TABLE {table} (panel text, layer integer, side text, "
+                         "frame text, tool text, measured_at timestamptz, x_mm float8, "
+                         "y_mm float8, dx_um float8, dy_um float8)")
+            conn.commit()
+            t = time.perf_counter()
+            with conn.cursor() as cur, cur.copy(f"COPY {table} FROM STDIN") as copy:
+                for row in rows:
+                    copy.write_row(row)
+            conn.commit()
+            times.append(time.perf_counter() - t)
+            conn.execute(f"DROP TABLE {table}")
+            conn.commit()
+    return times
+
+
+# ----------------------------------------------------------------------------- report
+
+def report(label: str, base_label: str, e2e: dict[str, Any], all_s: list[float],
+           base_s: list[float], n_rows: int, setup_s: float) -> tuple[float, float]:
+    rate = e2e["rows"] / e2e["seconds"]
+    base_rate = n_rows / min(base_s)
+    ratio = rate / base_rate
+    runs = ", ".join(f"{t:.1f}" for t in all_s)
+    print(f"\n== {label}")
+    print(f"  register {e2e['panels']} panels via services  {setup_s:8.1f} s"
+          "  (per store; not timed)")
+    print(f"  end to end import_csv       {e2e['seconds']:8.2f} s   "
+          f"{fmt_rate(e2e['rows'], e2e['seconds'])}   best of {len(all_s)} ({runs} s); "
+          f"import process CPU {e2e['cpu_s']:.1f} s")
+    print(f"    ({e2e['rows']:,} rows, {e2e['measurements']:,} measurements, {e2e['panels']} panel"
+          " states refreshed)")
+    print(f"  baseline {base_label:<19}{min(base_s):8.2f} s   {fmt_rate(n_rows, min(base_s))}"
+          f"   best of {len(base_s)} ({', '.join(f'{t:.2f}' for t in base_s)} s)")
+    print(f"  ratio end to end / baseline {ratio:8.3f}     (target >= {TARGET_RATIO})")
+    print(f"  peak RSS of the import process {e2e['rss_peak_mb']:6.0f} MB "
+          f"(target < {TARGET_MB:.0f}; {e2e['rss_before_mb']:.0f} MB before the import started)")
+    print("  where the end-to-end time goes (light wrappers, same run):")
+    found = {name: (seconds, calls) for name, seconds, calls in e2e["breakdown"]}
+    order = [n for n in STAGES if n in found] + sorted(set(found) - set(STAGES))
+    for name in order:
+        seconds, calls = found[name]
+        print(f"    {name:<44}{seconds:8.2f} s {100 * seconds / e2e['seconds']:5.1f} %"
+              f"  {calls:>6} calls")
+    rest = e2e["seconds"] - sum(s for n, (s, _) in found.items() if not n.startswith(" "))
+    print(f"    {'rest (header, concat/carry, ...)':<44}{rest:8.2f} s "
+          f"{100 * rest / e2e['seconds']:5.1f} %")
+    if e2e["profile"]:
+        print("  cProfile, top 15 by cumulative time (profiled run; times inflated):")
+        print("\n".join("    " + line for line in e2e["profile"].splitlines() if line.strip()))
+    return ratio, e2e["rss_peak_mb"]
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--rows", type=int, default=1_000_000,
+                    help="site rows wanted; rounded up to whole panels of 1176 rows")
+    ap.add_argument("--seed", type=int, default=2026)
+    ap.add_argument("--runs", type=int, default=2,
+                    help="end-to-end imports per database, each into a fresh store (best of)")
+    ap.add_argument("--baseline-runs", type=int, default=3)
+    ap.add_argument("--skip-sqlite", action="store_true")
+    ap.add_argument("--skip-postgres", action="store_true")
+    ap.add_argument("--profile", action="store_true",
+                    help="one more import under cProfile (top 15 by cumtime), not timed")
+    args = ap.parse_args()
+
+    n_panels = max(1, math.ceil(args.rows / ROWS_PER_PANEL))
+    names = _data.serials(n_panels)
+    print(f"stackledger ingest benchmark: {n_panels} panels x 24 measurements x 49 sites, "
+          f"seed {args.seed}, python {sys.version.split()[0]}, sqlite {sqlite3.sqlite_version}, "
+          f"psycopg {psycopg.__version__}")
+    pg_why = None if args.skip_postgres else _data.pg_available()
+    with _data.tempdir() as tmp_name:
+        tmp = Path(tmp_name)
+        path = tmp / "sites.csv"
+        t = time.perf_counter()
+        n_rows = _data.write_csv(path, names, seed=args.seed)
+        print(f"CSV: {n_rows:,} rows, {path.stat().st_size / 1e6:.0f} MB, written in "
+              f"{time.perf_counter() - t:.1f} s")
+        results = {}
+        if not args.skip_sqlite:
+            def sqlite_store(i: int) -> Any:
+                return _data.sqlite_url(tmp, f"store{i}.db")
+
+            results["SQLite"] = repeated(sqlite_store, names, path, args.runs, args.profile)
+        if not args.skip_postgres and not pg_why:
+            results["PostgreSQL"] = repeated(lambda i: _data.pg_url(), names, path, args.runs,
+                                             args.profile)
+        # The baselines' pre-parsed rows are only built now, so that the parent is small while
+        # the import children run.
+        rows, parse_s = parse_rows(path)
+        print(f"csv-module parse into typed tuples (not part of the baselines): {parse_s:.2f} s")
+        summary = []
+        if "SQLite" in results:
+            e2e, all_s, setup_s = results["SQLite"]
+            base = sqlite_baseline(tmp, rows, args.baseline_runs)
+            summary.append(("SQLite", *report("SQLite", "sqlite3 executemany", e2e, all_s, base,
+                                              n_rows, setup_s)))
+        if "PostgreSQL" in results:
+            e2e, all_s, setup_s = results["PostgreSQL"]
+            with _data.pg_url() as url:
+                base = pg_baseline(url, rows, args.baseline_runs)
+            summary.append(("PostgreSQL", *report("PostgreSQL", "psycopg COPY", e2e, all_s,
+                                                  base, n_rows, setup_s)))
+        elif pg_why:
+            print(f"\n== PostgreSQL skipped: {pg_why}")
+
+    print("\n== summary")
+    for name, ratio, mb in summary:
+        print(f"  {name:<11} ratio {ratio:.3f} (target >= {TARGET_RATIO}: "
+              f"{'met' if ratio >= TARGET_RATIO else 'NOT met'})   peak {mb:.0f} MB "
+              f"(target < {TARGET_MB:.0f}: {'met' if mb < TARGET_MB else 'NOT met'})")
+
+
+if __name__ == "__main__":
+    main()
