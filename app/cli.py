@@ -134,7 +134,7 @@ def holds_command(
     from app.services.hold_list import holds_csv
 
     try:
-        hold_list = holds.list_holds(db=Database(), state=state)
+        hold_list = holds.list_all_holds(db=Database(), state=state)
     except DomainError as exc:
         _fail(exc)
     if csv:

@@ -66,7 +66,7 @@ def load_demo(path: Path, *, console: Console, progress_console: Console) -> str
         upgrade(db.engine)
         demo_keys = load_into(db, console=console, progress_console=progress_console)
         print_closest(console, closest_to_limit(db), "Panels closest to their FTB limit")
-        print_holds(console, holds.list_holds(db=db, state="open"))
+        print_holds(console, holds.list_all_holds(db=db, state="open"))
         console.print("\nDemo keys (use as 'Authorization: Bearer <key>'):")
         for role, key in demo_keys.items():
             console.print(f"  {role:<10} {key}")

@@ -53,3 +53,5 @@ class HoldRead(BaseModel):
 class HoldList(BaseModel):
     caution: str = CAUTION
     holds: list[HoldRead]
+    next_cursor: str | None = Field(default=None,
+                                    description="Pass as ?cursor= to get the next page.")

@@ -15,10 +15,13 @@ qualified engineers (``app.schemas.holds.CAUTION``).
 
 from __future__ import annotations
 
+import base64
+import json
 import uuid
+from datetime import datetime
 from typing import Any, Final
 
-from sqlalchemy import select
+from sqlalchemy import ColumnElement, Row, Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
@@ -90,30 +93,41 @@ def apply_automatic(
     return hold
 
 
-def _read(session: Session, hold: Hold) -> HoldRead:
-    panel = session.get_one(Panel, hold.panel)
-    lot = session.get_one(Lot, panel.lot_id)
-    product = session.get_one(Product, panel.product_id)
-    state = session.get(PanelState, hold.panel)
-    forecast = (state.forecast if state else None) or {}
+def _with_panel() -> Select[Any]:
+    """Holds with what the hold list shows of their panel, in one query (no lookups per row)."""
+    return (
+        select(Hold, Lot.code, Product.code, PanelState.risk, PanelState.layers_a,
+               PanelState.layers_b, PanelState.ftb_worst_um, PanelState.forecast,
+               PanelState.p_exceed)
+        .join(Panel, Panel.serial == Hold.panel)
+        .join(Lot, Lot.id == Panel.lot_id)
+        .join(Product, Product.id == Panel.product_id)
+        .outerjoin(PanelState, PanelState.panel == Hold.panel)
+    )
+
+
+def _to_read(row: Row[Any]) -> HoldRead:
+    hold, lot, product, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
+    forecast = forecast or {}
     band = forecast.get("band_um")
     return HoldRead(
-        id=str(hold.id), panel=hold.panel, lot=lot.code, product=product.code,
-        state=hold.state,  # type: ignore[arg-type]
-        kind=hold.kind,  # type: ignore[arg-type]
-        rule=hold.rule, risk=state.risk if state else "clear", severity=hold.severity,
-        layers_reached={
-            "A": max(state.layers_a, default=0) if state else 0,
-            "B": max(state.layers_b, default=0) if state else 0,
-        },
-        ftb_now_um=state.ftb_worst_um if state else 0.0,
+        id=str(hold.id), panel=hold.panel, lot=lot, product=product,
+        state=hold.state, kind=hold.kind, rule=hold.rule, risk=risk or "clear",
+        severity=hold.severity,
+        layers_reached={"A": max(layers_a or [], default=0), "B": max(layers_b or [], default=0)},
+        ftb_now_um=ftb or 0.0,
         forecast_final_um=forecast.get("final_worst_um"),
-        forecast_band_um=tuple(band) if band else None,  # type: ignore[arg-type]
-        p_exceed=state.p_exceed if state else None,
+        forecast_band_um=tuple(band) if band else None,
+        p_exceed=p_exceed,
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
         disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,
     )
+
+
+def _read(session: Session, hold: Hold) -> HoldRead:
+    return _to_read(session.execute(
+        _with_panel().where(Hold.panel == hold.panel, Hold.id == hold.id)).one())
 
 
 def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) -> HoldRead:
@@ -193,15 +207,49 @@ def dispose(
         return _read(session, hold)
 
 
-def list_holds(*, db: Database, state: str | None = "open", limit: int = 500) -> HoldList:
-    """Holds ordered by severity (worst first), then by age (oldest first)."""
+def _cursor(hold: Hold) -> str:
+    values = [hold.severity, hold.held_at.isoformat(), hold.panel, str(hold.id)]
+    return base64.urlsafe_b64encode(json.dumps(values).encode()).decode()
+
+
+def _after(cursor: str) -> ColumnElement[bool]:
+    """Keyset condition: holds that come after the cursor in the hold-list order."""
+    try:
+        severity, held_at, panel, hold_id = json.loads(base64.urlsafe_b64decode(cursor))
+        at, key = datetime.fromisoformat(held_at), uuid.UUID(hold_id)
+    except (ValueError, TypeError) as exc:
+        raise InvalidInput("cursor is not one this service gave out") from exc
+    later = or_(Hold.held_at > at, and_(Hold.held_at == at, or_(
+        Hold.panel > panel, and_(Hold.panel == panel, Hold.id > key))))
+    return or_(Hold.severity < severity, and_(Hold.severity == severity, later))
+
+
+def list_holds(
+    *, db: Database, state: str | None = "open", limit: int = 50, cursor: str | None = None
+) -> HoldList:
+    """One page of holds ordered by severity (worst first), then age (oldest first)."""
     if state not in (None, "open", "closed"):
         raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
     with db.transaction() as session:
-        query = select(Hold)
+        query = _with_panel()
         if state:
             query = query.where(Hold.state == state)
-        rows = session.scalars(
-            query.order_by(Hold.severity.desc(), Hold.held_at, Hold.panel).limit(limit)
+        if cursor:
+            query = query.where(_after(cursor))
+        rows = session.execute(
+            query.order_by(Hold.severity.desc(), Hold.held_at, Hold.panel, Hold.id)
+            .limit(limit + 1)
         ).all()
-        return HoldList(holds=[_read(session, h) for h in rows])
+        more = len(rows) > limit
+        return HoldList(holds=[_to_read(r) for r in rows[:limit]],
+                        next_cursor=_cursor(rows[limit - 1][0]) if more else None)
+
+
+def list_all_holds(*, db: Database, state: str | None = "open") -> HoldList:
+    """Every page, for the printed hold list and the CSV export."""
+    page = list_holds(db=db, state=state, limit=500)
+    items = list(page.holds)
+    while page.next_cursor:
+        page = list_holds(db=db, state=state, limit=500, cursor=page.next_cursor)
+        items += page.holds
+    return HoldList(holds=items)

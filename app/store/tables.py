@@ -215,7 +215,6 @@ class PanelState(Base):
 
 class Hold(Base):
     __tablename__ = "holds"
-    __table_args__ = (Index("ix_holds_state_severity", "state", "severity"),)
 
     panel: Mapped[str] = mapped_column(ForeignKey("panels.serial"), primary_key=True)
     id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True, default=uuid.uuid4)
@@ -231,6 +230,11 @@ class Hold(Base):
     disposition_note: Mapped[str | None] = mapped_column(Text)
     disposed_at: Mapped[datetime | None] = mapped_column(Stamp)
     disposed_by: Mapped[str | None] = mapped_column(String(100))
+
+
+# The hold list's own order (worst first, then oldest), so its first page is read off the index
+# however many holds the store has kept.
+Index("ix_holds_queue", Hold.state, Hold.severity.desc(), Hold.held_at, Hold.panel, Hold.id)
 
 
 class RejectedUpload(Base):

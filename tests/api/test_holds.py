@@ -204,3 +204,24 @@ def test_hold_list_csv_is_safe_and_carries_the_caution(setup):
 def test_safe_cell(value, expected):
     # reference: OWASP ASVS 5.0, requirement 1.2.10 (CSV and formula injection)
     assert safe_cell(value) == expected
+
+
+def test_hold_list_pages_follow_the_order(setup):
+    db, c, k = setup
+    for i in range(5):
+        make_panel(db, f"M{i}")
+        c.post(f"/api/v1/panels/M{i}/holds", json={"reason": f"look {i}"},
+               headers=k.headers("engineer"))
+    make_panel(db, "OVER")
+    _post(c, k, "OVER", 1, "A", 20.0)
+    whole = [h["panel"] for h in _open(c, k)]
+    paged, url = [], "/api/v1/holds?limit=2"
+    while url:
+        page = c.get(url, headers=k.headers("supervisor")).json()
+        assert len(page["holds"]) <= 2
+        paged += [h["panel"] for h in page["holds"]]
+        url = f"/api/v1/holds?limit=2&cursor={page['next_cursor']}" if page["next_cursor"] \
+            else None
+    assert paged == whole == ["OVER", "M0", "M1", "M2", "M3", "M4"]
+    assert c.get("/api/v1/holds?cursor=nonsense",
+                 headers=k.headers("supervisor")).status_code == 422

@@ -18,7 +18,7 @@ def test_demo_shows_every_risk_level_and_holds_the_panels_made_risky(db, tmp_pat
     levels = Counter(p.risk for p in page.items)
     assert set(levels) == {"clear", "watch", "at_risk", "over_limit"}
     assert levels["clear"] > levels["watch"] > 0 and levels["clear"] > summary.panels / 2
-    held = {h.panel: h for h in holds.list_holds(db=db, state="open").holds}
+    held = {h.panel: h for h in holds.list_all_holds(db=db, state="open").holds}
     for serial in (*summary.over_limit, *summary.drifting, *summary.growing_core):
         assert serial in held, serial
     for serial in summary.over_limit:

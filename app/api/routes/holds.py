@@ -1,8 +1,9 @@
 from __future__ import annotations
 
-from typing import Literal
+from typing import Annotated, Literal
 
 from fastapi import APIRouter
+from fastapi import Query as QueryParam
 from fastapi.responses import PlainTextResponse
 
 from app.api.deps import DbDep, Dispose, Query
@@ -15,9 +16,15 @@ router = APIRouter(prefix="/api/v1/holds", tags=["holds"], responses=PROBLEM_RES
 
 
 @router.get("", response_model=HoldList)
-def list_holds(db: DbDep, _: Query, state: Literal["open", "closed"] = "open") -> HoldList:
-    """The hold list, worst first then oldest first, with the disposition caution."""
-    return holds.list_holds(db=db, state=state)
+def list_holds(
+    db: DbDep,
+    _: Query,
+    state: Literal["open", "closed"] = "open",
+    limit: Annotated[int, QueryParam(ge=1, le=500)] = 50,
+    cursor: str | None = None,
+) -> HoldList:
+    """The hold list, worst first then oldest first, with the disposition caution; paged."""
+    return holds.list_holds(db=db, state=state, limit=limit, cursor=cursor)
 
 
 @router.get(".csv", response_class=PlainTextResponse,
@@ -26,7 +33,7 @@ def list_holds_csv(
     db: DbDep, _: Query, state: Literal["open", "closed"] = "open"
 ) -> PlainTextResponse:
     """The hold list as CSV (cells safe against formula injection)."""
-    text = holds_csv(holds.list_holds(db=db, state=state))
+    text = holds_csv(holds.list_all_holds(db=db, state=state))
     return PlainTextResponse(text, media_type="text/csv; charset=utf-8",
                              headers={"Content-Disposition": 'attachment; filename="holds.csv"'})
 
