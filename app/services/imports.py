@@ -35,7 +35,7 @@ from app.services import holds, state
 from app.services.history import learn
 from app.services.measurements import fit_row
 from app.store import bulk
-from app.store.tables import Fit, Measurement, Panel, Product, Site, utcnow
+from app.store.tables import Fit, Measurement, Panel, PanelState, Product, Site, utcnow
 
 COLUMNS: Final = ("panel", "layer", "side", "frame", "tool", "measured_at",
                   "x_mm", "y_mm", "dx_um", "dy_um")
@@ -156,9 +156,12 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
          lambda i: f"frame must be 'tool' or 'panel', got '{df['frame'].iat[i]}'")
     flag((df["tool"].str.len() == 0).to_numpy() | (df["tool"].str.len() > 64).to_numpy(),
          "tool", lambda i: "tool must be 1 to 64 characters")
-    stamps = pd.to_datetime(df["measured_at"], errors="coerce", utc=True, format="ISO8601")
-    has_zone = df["measured_at"].str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
-    flag((stamps.isna() | ~has_zone).to_numpy(), "measured_at",
+    # One measurement's rows share a time: parse each distinct text once.
+    codes, texts = pd.factorize(df["measured_at"])
+    parsed = pd.to_datetime(pd.Series(texts), errors="coerce", utc=True, format="ISO8601")
+    zoned = pd.Series(texts).str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
+    stamps = pd.Series(parsed.to_numpy()[codes], index=df.index)
+    flag((stamps.isna() | ~zoned.to_numpy()[codes]).to_numpy(), "measured_at",
          lambda i: f"'{df['measured_at'].iat[i]}' is not an ISO 8601 time with a time zone")
     df["stamp"] = stamps
     length = np.hypot(df["dx_um"].to_numpy(), df["dy_um"].to_numpy())
@@ -226,12 +229,14 @@ def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
     px, py, pdx, pdy = x.copy(), y.copy(), dx.copy(), dy.copy()
     heads = df.iloc[starts]
     products = [run.panels[s][1] for s in heads["panel"]]  # type: ignore[index]
-    for (s, n), head, product in zip(zip(starts, counts, strict=True), heads.itertuples(),
-                                     products, strict=True):
-        if head.side == "B" and head.frame == "tool":
-            sl = slice(s, s + n)
-            px[sl], py[sl], pdx[sl], pdy[sl] = mirror_sites(
-                x[sl], y[sl], dx[sl], dy[sl], side="B", flip_axis=product.flip_axis)
+    # Side B posted in its tool frame goes to the panel frame: one mirror call per flip axis.
+    in_tool_b = ((heads["side"] == "B") & (heads["frame"] == "tool")).to_numpy()
+    flips = np.array([p.flip_axis for p in products])
+    for axis in ("x", "y"):
+        rows = np.repeat(in_tool_b & (flips == axis), counts)
+        if rows.any():
+            px[rows], py[rows], pdx[rows], pdy[rows] = mirror_sites(
+                x[rows], y[rows], dx[rows], dy[rows], side="B", flip_axis=axis)
     trapezoid = np.array([p.model_terms == 8 for p in products])
     fits: list[Any] = [None] * len(starts)
     for flag in (False, True):
@@ -266,18 +271,17 @@ def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
     ])
     if updates:
         bulk.supersede(session, updates)
-    group_ids = np.repeat(np.arange(len(starts)), counts)
     seq = np.arange(len(df)) - np.repeat(starts, counts)
-    panel_col = df["panel"].to_numpy()
-    bulk.insert(session, Site.__table__, list(zip(
-        panel_col, [ids[g] for g in group_ids], seq.tolist(), x.tolist(), y.tolist(),
+    # Site rows are streamed, not listed: a million tuples alive at once would cost memory and
+    # garbage-collector passes. Ids go as the 32 hex digits both databases take for a UUID.
+    site_ids = np.repeat(np.array([i.hex for i in ids], dtype=object), counts)
+    bulk.insert(session, Site.__table__, zip(
+        df["panel"].to_numpy(), site_ids, seq.tolist(), x.tolist(), y.tolist(),
         dx.tolist(), dy.tolist(), px.tolist(), py.tolist(), pdx.tolist(), pdy.tolist(),
-        strict=True)))
+        strict=True), stored_form=True)
     fit_columns = [c.name for c in Fit.__table__.columns]
-    bulk.insert(session, Fit.__table__, [
-        tuple(fit_row(h.panel, ids[j], fits[j])[c] for c in fit_columns)
-        for j, h in enumerate(heads.itertuples())
-    ])
+    fit_rows = (fit_row(h.panel, ids[j], fits[j]) for j, h in enumerate(heads.itertuples()))
+    bulk.insert(session, Fit.__table__, [tuple(r[c] for c in fit_columns) for r in fit_rows])
     run.measurements += len(starts)
 
 
@@ -351,13 +355,20 @@ def _refresh_touched(session: Session, run: _Run) -> None:
     histories: dict[int, Any] = {}
     serials = sorted(run.touched)
     layers = state.current_layers_many(session, serials)
-    for serial in serials:
-        panel, product = run.panels[serial]  # type: ignore[misc]
-        if product.id not in histories:
-            histories[product.id] = learn(session, product=product)
-        st, assessment = state.refresh(session, panel=panel, product=product,
-                                       histories=histories[product.id], layers=layers[serial])
-        holds.apply_automatic(session, panel=panel, state=st, assessment=assessment)
+    # Load the existing states in a few queries and keep them referenced (the identity map
+    # holds objects weakly), so that each refresh finds its state without a query and flush.
+    kept = [st for start in range(0, len(serials), 500) for st in session.scalars(
+        select(PanelState).where(PanelState.panel.in_(serials[start:start + 500])))]
+    with session.no_autoflush:
+        for serial in serials:
+            panel, product = run.panels[serial]  # type: ignore[misc]
+            if product.id not in histories:
+                histories[product.id] = learn(session, product=product)
+            st, assessment = state.refresh(session, panel=panel, product=product,
+                                           histories=histories[product.id],
+                                           layers=layers[serial])
+            holds.apply_automatic(session, panel=panel, state=st, assessment=assessment)
+    del kept
 
 
 def rows_as_errors(errors: list[FieldError]) -> list[RowError]:

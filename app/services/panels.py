@@ -196,13 +196,13 @@ def stack(*, db: Database, serial: str) -> StackRead:
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
             for k in sorted(layers[side]):
-                m, f = layers[side][k].measurement, layers[side][k].fit
+                f = layers[side][k].row
                 out.append(StackLayerRead(
                     side=side,  # type: ignore[arg-type]
                     layer=k,
-                    measurement_id=str(m.id),
-                    tool=m.tool,
-                    measured_at=m.measured_at,
+                    measurement_id=str(f.id),
+                    tool=f.tool,
+                    measured_at=f.measured_at,
                     model=f.model,
                     note=f.note,
                     tx_um=f.tx,

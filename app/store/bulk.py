@@ -8,7 +8,7 @@ site rows. So rows go in as plain tuples in table column order: PostgreSQL throu
 from __future__ import annotations
 
 import json
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from datetime import UTC
 from typing import Any
 
@@ -24,10 +24,14 @@ _SQLITE_VALUE: dict[str, Callable[[Any], Any]] = {
 }
 
 
-def insert(session: Session, table: Table, rows: Sequence[Sequence[Any]]) -> None:
-    """Insert ``rows`` (tuples in the table's column order) in the session's transaction."""
-    if not rows:
-        return
+def insert(
+    session: Session, table: Table, rows: Iterable[Sequence[Any]], *, stored_form: bool = False
+) -> None:
+    """Insert ``rows`` (tuples in the table's column order) in the session's transaction.
+
+    ``stored_form`` says the values are already as both databases store them (numbers, text,
+    UUIDs as 32 hex digits), so no value is converted on the way.
+    """
     columns = [c.name for c in table.columns]
     connection = session.connection()
     dbapi = connection.connection.dbapi_connection
@@ -40,12 +44,12 @@ def insert(session: Session, table: Table, rows: Sequence[Sequence[Any]]) -> Non
         return
     convert = {i: _SQLITE_VALUE[type(c.type).__name__] for i, c in enumerate(table.columns)
                if type(c.type).__name__ in _SQLITE_VALUE}
-    if convert:
-        rows = [
+    if convert and not stored_form:
+        rows = (
             tuple(convert[i](v) if i in convert and v is not None else v
                   for i, v in enumerate(row))
             for row in rows
-        ]
+        )
     placeholders = ", ".join("?" for _ in columns)
     cur = dbapi.cursor()
     try:
