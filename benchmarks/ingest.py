@@ -91,10 +91,10 @@ def _instrument(timer: Timer, marks: dict[str, float]) -> None:
     timer.wrap(imports, "fit_many", "  of which fit_many")
     original_insert = bulk.insert
 
-    def insert(session: Any, table: Any, rows: Any) -> None:
+    def insert(session: Any, table: Any, rows: Any, **options: Any) -> None:
         t = time.perf_counter()
         try:
-            original_insert(session, table, rows)
+            original_insert(session, table, rows, **options)
         finally:
             timer.add(f"  of which bulk.insert {table.name}", time.perf_counter() - t)
 

@@ -130,6 +130,14 @@ def _load_panels(session: Session, run: _Run, serials: list[str]) -> None:
             run.panels[s] = found.get(s)
 
 
+def _numbers(column: pd.Series) -> np.ndarray:
+    """Text to float64; text that is not a number becomes NaN (and is reported as such)."""
+    try:  # the common case, every cell a number: numpy's cast is twice as fast as to_numeric
+        return np.asarray(column.to_numpy(), dtype=np.float64)
+    except ValueError:
+        return pd.to_numeric(column, errors="coerce").to_numpy(dtype=np.float64)
+
+
 def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
     """Row-level checks, vectorised; returns the frame with parsed columns."""
     settings = get_settings()
@@ -143,7 +151,7 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
         bad |= mask
 
     for c in NUMERIC:
-        values = pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=np.float64)
+        values = _numbers(df[c])
         flag(~np.isfinite(values), c, lambda i, c=c: f"'{df[c].iat[i]}' is not a finite number")
         df[c] = values
     layer = pd.to_numeric(df["layer"], errors="coerce").to_numpy(dtype=np.float64)
@@ -154,8 +162,9 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
          lambda i: f"side must be 'A' or 'B', got '{df['side'].iat[i]}'")
     flag(~df["frame"].isin(["tool", "panel"]).to_numpy(), "frame",
          lambda i: f"frame must be 'tool' or 'panel', got '{df['frame'].iat[i]}'")
-    flag((df["tool"].str.len() == 0).to_numpy() | (df["tool"].str.len() > 64).to_numpy(),
-         "tool", lambda i: "tool must be 1 to 64 characters")
+    tool_length = df["tool"].str.len().to_numpy()
+    flag((tool_length == 0) | (tool_length > 64), "tool",
+         lambda i: "tool must be 1 to 64 characters")
     # One measurement's rows share a time: parse each distinct text once.
     codes, texts = pd.factorize(df["measured_at"])
     parsed = pd.to_datetime(pd.Series(texts), errors="coerce", utc=True, format="ISO8601")
