@@ -24,3 +24,5 @@ lint: $(BIN)/.installed
 
 bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/core.py
+	$(BIN)/python benchmarks/ingest.py
+	$(BIN)/python benchmarks/holds.py
