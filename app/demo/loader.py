@@ -12,7 +12,7 @@ from sqlalchemy import select
 
 from app.db import Database
 from app.reports import print_closest, print_holds
-from app.schemas.panels import PanelCreate
+from app.schemas.panels import PanelCreate, PanelRead
 from app.schemas.products import ProductCreate
 from app.services import holds, keys, panels, products
 from app.services.history import forget
@@ -38,7 +38,7 @@ def load_into(db: Database, *, console: Console | None = None,
     return {role: keys.create(db=db, role=role, label=f"demo {role}")[0] for role in DEMO_ROLES}
 
 
-def closest_to_limit(db: Database, n: int = 15) -> list[tuple[object, float]]:
+def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]:
     with db.transaction() as session:
         limits = {p.code: p.ftb_limit_um for p in session.scalars(select(Product))}
     page = panels.list_panels(db=db, limit=500)
@@ -47,10 +47,10 @@ def closest_to_limit(db: Database, n: int = 15) -> list[tuple[object, float]]:
         page = panels.list_panels(db=db, limit=500, cursor=page.next_cursor)
         items += page.items
 
-    def closeness(p: object) -> float:
-        f = p.forecast  # type: ignore[attr-defined]
-        ratio = p.ftb.worst_um / limits[p.product]  # type: ignore[attr-defined]
-        return max(ratio, f.p_exceed if f else 0.0)
+    def closeness(p: PanelRead) -> float:
+        """The larger of the share of the limit used now and the forecast P(exceed)."""
+        ratio = p.ftb.worst_um / limits[p.product]
+        return max(ratio, p.forecast.p_exceed if p.forecast else 0.0)
 
     items.sort(key=closeness, reverse=True)
     return [(p, limits[p.product]) for p in items[:n]]
