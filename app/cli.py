@@ -70,26 +70,16 @@ def key_revoke(prefix: str) -> None:
 
 def import_file(db: Database, path: Path, label: str) -> None:
     """Import one CSV file with a progress bar; a refused file is kept with its reason."""
-    from app.services import imports, rejections
+    from app.services import imports
 
-    size = path.stat().st_size
     with Progress(TextColumn("[bold]import[/bold] {task.description}"), BarColumn(),
                   TextColumn("{task.completed:,} rows"), TimeElapsedColumn(),
                   console=err, transient=False) as bar:
         task = bar.add_task(path.name, total=None)
         try:
-            with path.open("rb") as stream:
-                result = imports.import_csv(
-                    db=db, stream=stream, name=path.name, principal_label=label,
-                    progress=lambda n: bar.advance(task, n),
-                )
+            result = imports.import_path(db=db, path=path, label=label,
+                                         progress=lambda n: bar.advance(task, n))
         except DomainError as exc:
-            with path.open("rb") as stream:
-                body = stream.read(rejections.MAX_KEPT_BYTES + 1)
-            rejections.record(db=db, endpoint=f"cli import {path.name}", key_label=label,
-                              status=exc.status, reason=exc.detail,
-                              errors=[e.as_dict() for e in exc.errors], content_type="text/csv",
-                              body=body, truncated=size > rejections.MAX_KEPT_BYTES)
             _fail(exc)
     err.print(f"imported {result.rows:,} rows: {result.measurements:,} measurements of "
               f"{result.panels:,} panels ({result.superseded} superseded)")
@@ -155,7 +145,8 @@ def demo(
     their limit, the hold list and a key per role, then serve the API."""
     from app.demo.loader import load_demo
 
-    url = load_demo(database, console=out, progress_console=err)
+    url = load_demo(database, console=out, load=lambda db: import_file(
+        db, SAMPLE_MEASUREMENTS, label="demo metrology"))
     if serve_api:
         import os
 
@@ -168,6 +159,9 @@ def demo(
         out.print(f"\nserving on http://{host}:{port}  (API docs: http://{host}:{port}/docs; "
                   "Ctrl-C stops)")
         uvicorn.run("app.main:app", host=host, port=port)
+
+
+SAMPLE_MEASUREMENTS = Path(__file__).resolve().parents[1] / "sample_data" / "measurements.csv"
 
 
 def main() -> None:

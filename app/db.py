@@ -1,8 +1,10 @@
 """Engine and session factory.
 
-SQLite (the embedded default) runs in WAL mode with foreign keys on and a busy timeout, and every
-transaction starts with BEGIN IMMEDIATE so that concurrent writers queue on the lock instead of
-failing half way with "database is locked". PostgreSQL needs nothing special.
+SQLite (the embedded default) runs in WAL mode with foreign keys on and a busy timeout. A write
+transaction starts with BEGIN IMMEDIATE, so that concurrent writers queue on the write lock
+instead of failing half way with "database is locked"; a read transaction (``db.reading()``)
+starts with a plain BEGIN and, under WAL, never waits for a writer. PostgreSQL needs nothing
+special.
 """
 
 from __future__ import annotations
@@ -16,9 +18,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from app.config import get_settings
 
-
-def is_sqlite(engine: Engine) -> bool:
-    return engine.dialect.name == "sqlite"
+_READING = "stackledger_reading"
 
 
 def _sqlite_setup(engine: Engine, busy_timeout_ms: int) -> None:
@@ -35,7 +35,8 @@ def _sqlite_setup(engine: Engine, busy_timeout_ms: int) -> None:
 
     @event.listens_for(engine, "begin")
     def _on_begin(conn: Any) -> None:
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        reading = conn.get_execution_options().get(_READING, False)
+        conn.exec_driver_sql("BEGIN" if reading else "BEGIN IMMEDIATE")
 
 
 def make_engine(url: str | None = None) -> Engine:
@@ -56,11 +57,20 @@ class Database:
     def __init__(self, url: str | None = None) -> None:
         self.engine = make_engine(url)
         self.sessions = sessionmaker(self.engine, expire_on_commit=False)
+        self._read_sessions = sessionmaker(
+            self.engine.execution_options(**{_READING: True}), expire_on_commit=False
+        )
 
     @contextmanager
     def transaction(self) -> Iterator[Session]:
         """A session whose work commits on success and rolls back on any error."""
         with self.sessions() as session, session.begin():
+            yield session
+
+    @contextmanager
+    def reading(self) -> Iterator[Session]:
+        """A read-only unit of work: on SQLite it does not queue behind a writer."""
+        with self._read_sessions() as session, session.begin():
             yield session
 
     def dispose(self) -> None:

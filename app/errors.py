@@ -57,12 +57,6 @@ class InvalidInput(DomainError):
     type_slug = "invalid-input"
 
 
-class PayloadTooLarge(DomainError):
-    status = 413
-    title = "Payload too large"
-    type_slug = "payload-too-large"
-
-
 class Unauthenticated(DomainError):
     status = 401
     title = "Not authenticated"

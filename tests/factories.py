@@ -30,7 +30,7 @@ def product_data(**overrides: Any) -> dict[str, Any]:
 
 def make_product(db: Database, **overrides: Any) -> str:
     return products.create(db=db, data=ProductCreate(**product_data(**overrides)),
-                           actor="test").code
+                           actor="test")[1].code
 
 
 def make_panel(db: Database, serial: str = "P0001", product: str = "TESTPROD",

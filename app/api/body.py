@@ -8,7 +8,7 @@ from typing import Any
 from starlette.requests import Request
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from app.api.problems import problem_response
+from app.api.problems import refused
 from app.config import get_settings
 
 
@@ -37,7 +37,7 @@ class BodyCapture:
             if size > limit:
                 scope["stackledger.body"] = b"".join(chunks)
                 scope["stackledger.body_truncated"] = True
-                response = problem_response(
+                response = await refused(
                     Request(scope), status=413, title="Payload too large",
                     slug="payload-too-large",
                     detail=f"the body is over the limit of {limit} bytes for {scope['path']}",

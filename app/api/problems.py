@@ -7,7 +7,6 @@ reason, in ``rejected_uploads``: nothing sent to the store is dropped silently.
 
 from __future__ import annotations
 
-import json
 import logging
 from typing import Any, Final
 
@@ -15,6 +14,7 @@ from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel
+from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import DomainError, FieldError
@@ -23,7 +23,7 @@ from app.services import keys, rejections
 log = logging.getLogger("stackledger")
 
 PROBLEM_BASE: Final = "https://stackledger.invalid/problems/"
-UPLOAD_PATHS: Final = ("/api/v1/measurements", "/api/v1/imports", "/api/v1/panels")
+UPLOAD_PATHS: Final = frozenset({"/api/v1/measurements", "/api/v1/imports", "/api/v1/panels"})
 
 
 class ProblemError(BaseModel):
@@ -50,45 +50,63 @@ PROBLEM_RESPONSES: Final[dict[int | str, dict[str, Any]]] = {
     for code, text in [
         (400, "Malformed request"), (401, "No valid API key"),
         (403, "Role may not do this"), (404, "Not found"), (409, "Conflict"),
-        (413, "Body too large"), (422, "Content not acceptable"),
+        (413, "Body too large"), (422, "Content not acceptable"), (500, "Service failure"),
     ]
 }
 
 
 def problem_response(
     request: Request, *, status: int, title: str, slug: str, detail: str,
-    errors: list[FieldError] | None = None,
+    errors: list[FieldError] | None = None, headers: dict[str, str] | None = None,
 ) -> JSONResponse:
     body = Problem(
         type=PROBLEM_BASE + slug, title=title, status=status, detail=detail,
         instance=request.url.path,
         errors=[ProblemError(**e.as_dict()) for e in errors or []],
     )
-    if request.method == "POST" and request.url.path.startswith(UPLOAD_PATHS):
-        _keep_rejected(request, status, detail, errors or [])
+    if status == 401:
+        # RFC 9110, 11.6.1: a 401 names the scheme the client should use.
+        headers = {**(headers or {}), "WWW-Authenticate": 'Bearer realm="stackledger"'}
     return JSONResponse(
         body.model_dump(exclude_none=True), status_code=status,
-        media_type="application/problem+json",
+        media_type="application/problem+json", headers=headers,
     )
 
 
+async def refused(
+    request: Request, *, status: int, title: str, slug: str, detail: str,
+    errors: list[FieldError] | None = None, headers: dict[str, str] | None = None,
+) -> JSONResponse:
+    """The problem answer to a refused request; a refused upload is kept first (off the event
+    loop, since keeping it is a database write)."""
+    if request.method == "POST" and request.url.path in UPLOAD_PATHS:
+        await run_in_threadpool(_keep_rejected, request, status, detail, errors or [])
+    return problem_response(request, status=status, title=title, slug=slug, detail=detail,
+                            errors=errors, headers=headers)
+
+
 def _keep_rejected(request: Request, status: int, detail: str, errors: list[FieldError]) -> None:
-    raw: bytes = request.scope.get("stackledger.body", b"")
+    """Keep a refused upload with its reason. The body is kept only for a caller with a valid
+    key: anonymous callers must not be able to fill the store (their refusal is still noted)."""
     db = request.app.state.db
     try:
         label = request.scope.get("stackledger.key_label") or keys.label_for(
             db=db, authorization=request.headers.get("authorization"))
+        known = label != keys.NO_VALID_KEY
+        raw: bytes = request.scope.get("stackledger.body", b"") if known else b""
         rejections.record(
             db=db, endpoint=request.url.path, key_label=label,
-            status=status, reason=detail, errors=[e.as_dict() for e in errors],
+            status=status, reason=detail if known else f"{detail} [body not kept: no valid key]",
+            errors=[e.as_dict() for e in errors],
             content_type=request.headers.get("content-type", ""), body=raw,
-            truncated=bool(request.scope.get("stackledger.body_truncated")),
+            truncated=known and bool(request.scope.get("stackledger.body_truncated")),
         )
     except Exception:  # the answer must still go out; the log says what was lost
         log.exception("could not record a rejected upload to %s", request.url.path)
 
 
 def _pointer(loc: tuple[Any, ...]) -> str:
+    """A JSON pointer into the body, or 'query:/name' / 'path:/name' for parameters."""
     parts = [str(p) for p in loc[1:]] if loc and loc[0] in ("body", "query", "path") else []
     where = loc[0] if loc else "body"
     return f"{where}:/" + "/".join(parts) if where != "body" else "/" + "/".join(parts)
@@ -97,8 +115,8 @@ def _pointer(loc: tuple[Any, ...]) -> str:
 def install(app: FastAPI) -> None:
     @app.exception_handler(DomainError)
     async def _domain(request: Request, exc: DomainError) -> JSONResponse:
-        return problem_response(request, status=exc.status, title=exc.title,
-                                slug=exc.type_slug, detail=exc.detail, errors=exc.errors)
+        return await refused(request, status=exc.status, title=exc.title, slug=exc.type_slug,
+                             detail=exc.detail, errors=exc.errors)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
@@ -107,7 +125,7 @@ def install(app: FastAPI) -> None:
             for e in exc.errors()
         ]
         first = errors[0] if errors else FieldError(message="invalid request")
-        return problem_response(
+        return await refused(
             request, status=422, title="Invalid input", slug="invalid-input",
             detail=f"{len(errors)} problem(s) in the request; first at {first.pointer}: "
                    f"{first.message}",
@@ -116,10 +134,15 @@ def install(app: FastAPI) -> None:
 
     @app.exception_handler(StarletteHTTPException)
     async def _http(request: Request, exc: StarletteHTTPException) -> JSONResponse:
-        return problem_response(request, status=exc.status_code, title=str(exc.detail),
-                                slug="http-" + str(exc.status_code), detail=str(exc.detail))
+        return await refused(request, status=exc.status_code, title=str(exc.detail),
+                             slug="http-" + str(exc.status_code), detail=str(exc.detail),
+                             headers=dict(exc.headers or {}))
 
-    @app.exception_handler(json.JSONDecodeError)
-    async def _json(request: Request, exc: json.JSONDecodeError) -> JSONResponse:
-        return problem_response(request, status=400, title="Malformed request",
-                                slug="bad-request", detail=f"body is not valid JSON: {exc}")
+    @app.exception_handler(Exception)
+    async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
+        log.exception("unexpected error on %s %s", request.method, request.url.path)
+        return await refused(
+            request, status=500, title="Internal error", slug="internal-error",
+            detail="the service failed on this request; nothing was stored. The error is in "
+                   "the service log.",
+        )

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import csv
 import json
+from collections.abc import Callable
 from pathlib import Path
 
 from rich.console import Console
@@ -14,7 +15,7 @@ from app.db import Database
 from app.reports import print_closest, print_holds
 from app.schemas.panels import PanelCreate, PanelRead
 from app.schemas.products import ProductCreate
-from app.services import holds, keys, panels, products
+from app.services import holds, imports, keys, panels, products
 from app.services.history import forget
 from app.store.migrate import upgrade
 from app.store.tables import Product
@@ -23,18 +24,20 @@ SAMPLE_DATA = Path(__file__).resolve().parents[2] / "sample_data"
 DEMO_ROLES = ("tool", "engineer", "supervisor", "admin")
 
 
-def load_into(db: Database, *, console: Console | None = None,
-              progress_console: Console | None = None) -> dict[str, str]:
-    """Load sample_data/ into ``db`` (already migrated); returns a demo key per role."""
-    from app.cli import import_file
+def load_into(db: Database, *, load: Callable[[Database], None] | None = None) -> dict[str, str]:
+    """Load sample_data/ into ``db`` (already migrated); returns a demo key per role.
 
+    ``load`` imports the measurements file (the CLI passes one with a progress bar)."""
     forget()
     for item in json.loads((SAMPLE_DATA / "products.json").read_text(encoding="utf-8")):
         products.create(db=db, data=ProductCreate(**item), actor="demo")
     with (SAMPLE_DATA / "panels.csv").open(encoding="utf-8", newline="") as f:
         for row in csv.DictReader(f):
             panels.create(db=db, data=PanelCreate(**row), actor="demo")
-    import_file(db, SAMPLE_DATA / "measurements.csv", label="demo metrology")
+    if load is None:
+        imports.import_path(db=db, path=SAMPLE_DATA / "measurements.csv", label="demo metrology")
+    else:
+        load(db)
     return {role: keys.create(db=db, role=role, label=f"demo {role}")[0] for role in DEMO_ROLES}
 
 
@@ -56,7 +59,8 @@ def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]
     return [(p, limits[p.product]) for p in items[:n]]
 
 
-def load_demo(path: Path, *, console: Console, progress_console: Console) -> str:
+def load_demo(path: Path, *, console: Console,
+              load: Callable[[Database], None] | None = None) -> str:
     """Create ``path`` afresh, load the scenario, print the report; returns the database URL."""
     for suffix in ("", "-wal", "-shm"):
         Path(str(path) + suffix).unlink(missing_ok=True)
@@ -64,7 +68,7 @@ def load_demo(path: Path, *, console: Console, progress_console: Console) -> str
     db = Database(url)
     try:
         upgrade(db.engine)
-        demo_keys = load_into(db, console=console, progress_console=progress_console)
+        demo_keys = load_into(db, load=load)
         print_closest(console, closest_to_limit(db), "Panels closest to their FTB limit")
         print_holds(console, holds.list_all_holds(db=db, state="open"))
         console.print("\nDemo keys (use as 'Authorization: Bearer <key>'):")

@@ -78,16 +78,9 @@ class MeasurementRead(BaseModel):
     state: PanelRead
 
 
-class RowError(BaseModel):
-    row: int
-    column: str | None = None
-    message: str
-
-
 class ImportRead(BaseModel):
     file: str
     rows: int
     measurements: int
     panels: int
     superseded: int
-    errors: list[RowError] = []

@@ -12,7 +12,8 @@ RiskLevel = Literal["clear", "watch", "at_risk", "over_limit"]
 class PanelCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    serial: str = Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9._:/-]+$")
+    # No "/": a serial is a path segment of /panels/{serial}.
+    serial: str = Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9._:-]+$")
     product: str = Field(min_length=1, max_length=64)
     lot: str = Field(min_length=1, max_length=64)
 

@@ -5,6 +5,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from app.overlay.resistance import RHO_COPPER_20C
+
 
 class Connection(BaseModel):
     """A representative routed connection, used to turn FTB into extra resistance."""
@@ -15,7 +17,7 @@ class Connection(BaseModel):
     thickness_um: float = Field(gt=0)
     length_um: float = Field(gt=0)
     resistivity_ohm_m: float = Field(
-        default=1.68e-8,
+        default=RHO_COPPER_20C,
         gt=0,
         description="Copper at 20 C (OpenStax University Physics vol. 2); plated copper runs "
         "somewhat higher.",

@@ -19,7 +19,7 @@ def record(
 
 
 def list_for(*, db: Database, subject: str) -> list[dict[str, Any]]:
-    with db.transaction() as session:
+    with db.reading() as session:
         rows = session.scalars(
             select(AuditEntry).where(AuditEntry.subject == subject).order_by(AuditEntry.id)
         ).all()

@@ -39,11 +39,11 @@ AUTOMATIC: Final = "stackledger (automatic)"
 def _figures(state: PanelState) -> dict[str, Any]:
     forecast = state.forecast or {}
     return {
-        "ftb_worst_um": round(state.ftb_worst_um, 3),
+        "ftb_worst_um": state.ftb_worst_um,
         "p_exceed": state.p_exceed,
         "final_worst_um": forecast.get("final_worst_um"),
         "band_um": forecast.get("band_um"),
-        "l2l_worst_um": round(state.l2l_worst_um, 3),
+        "l2l_worst_um": state.l2l_worst_um,
         "layers": {"A": max(state.layers_a, default=0), "B": max(state.layers_b, default=0)},
         "risk": state.risk,
     }
@@ -157,6 +157,15 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
         return _read(session, hold)
 
 
+def _built_status(session: Session, panel: Panel) -> str:
+    """The status a released panel goes back to: complete when every layer is on."""
+    state = session.get(PanelState, panel.serial)
+    full = session.get_one(Product, panel.product_id).layers_per_side
+    if state is not None and len(state.layers_a) == full and len(state.layers_b) == full:
+        return "complete"
+    return "in_process"
+
+
 def _last_layer(state: PanelState | None) -> dict[str, int]:
     if state is None:
         return {}
@@ -194,7 +203,7 @@ def dispose(
                                    **figures}
         if data.action == "release":
             hold.figures = {**hold.figures, "at_release": figures}
-            panel.status = "in_process"
+            panel.status = _built_status(session, panel)
         elif data.action == "scrap":
             panel.status = "scrapped"
         else:
@@ -230,7 +239,7 @@ def list_holds(
     """One page of holds ordered by severity (worst first), then age (oldest first)."""
     if state not in (None, "open", "closed"):
         raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
-    with db.transaction() as session:
+    with db.reading() as session:
         query = _with_panel()
         if state:
             query = query.where(Hold.state == state)

@@ -18,6 +18,7 @@ import io
 import uuid
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import IO, Any, Final
 
 import numpy as np
@@ -27,11 +28,11 @@ from sqlalchemy.orm import Session
 
 from app.config import get_settings
 from app.db import Database
-from app.errors import FieldError, InvalidInput
+from app.errors import DomainError, FieldError, InvalidInput
 from app.overlay.fit import fit_many
 from app.overlay.frames import mirror_sites
-from app.schemas.measurements import ImportRead, RowError
-from app.services import holds, state
+from app.schemas.measurements import ImportRead
+from app.services import holds, rejections, state
 from app.services.history import learn
 from app.services.measurements import fit_row
 from app.store import bulk
@@ -110,7 +111,8 @@ def _chunks(text: io.TextIOWrapper, names: list[str], size: int) -> Iterator[pd.
 
 
 def _load_panels(session: Session, run: _Run, serials: list[str]) -> None:
-    new = [s for s in serials if s not in run.panels]
+    # Sorted, so that two imports lock shared panels in the same order (no deadlock per chunk).
+    new = sorted(s for s in serials if s not in run.panels)
     if not new:
         return
     for start in range(0, len(new), 500):
@@ -179,6 +181,10 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
          lambda i: f"displacement of {length[i]:.1f} um is over {limit:.0f} um (1 mm)")
     known = df["panel"].isin([s for s, e in run.panels.items() if e is not None]).to_numpy()
     flag(~known, "panel", lambda i: f"panel '{df['panel'].iat[i]}' is not registered")
+    scrapped = df["panel"].isin(
+        [s for s, e in run.panels.items() if e is not None and e[0].status == "scrapped"])
+    flag(scrapped.to_numpy(), "panel", lambda i: f"panel '{df['panel'].iat[i]}' is scrapped; "
+         "no further measurements are accepted for it")
     df["row"] = rows
     df["ok"] = ~bad
     return df
@@ -347,8 +353,26 @@ def import_csv(
         _refresh_touched(session, run)
         return ImportRead(
             file=name, rows=run.rows, measurements=run.measurements, panels=len(run.touched),
-            superseded=run.superseded, errors=[],
+            superseded=run.superseded,
         )
+
+
+def import_path(
+    *, db: Database, path: Path, label: str, progress: Progress | None = None
+) -> ImportRead:
+    """Import a CSV file from disk (CLI, demo); a refused file is kept with its reason."""
+    try:
+        with path.open("rb") as stream:
+            return import_csv(db=db, stream=stream, name=path.name, principal_label=label,
+                              progress=progress)
+    except DomainError as exc:
+        with path.open("rb") as stream:
+            body = stream.read(rejections.MAX_KEPT_BYTES + 1)
+        rejections.record(db=db, endpoint=f"cli import {path.name}", key_label=label,
+                          status=exc.status, reason=exc.detail,
+                          errors=[e.as_dict() for e in exc.errors], content_type="text/csv",
+                          body=body, truncated=len(body) > rejections.MAX_KEPT_BYTES)
+        raise
 
 
 def _process(session: Session, df: pd.DataFrame, run: _Run) -> None:
@@ -379,6 +403,3 @@ def _refresh_touched(session: Session, run: _Run) -> None:
             holds.apply_automatic(session, panel=panel, state=st, assessment=assessment)
     del kept
 
-
-def rows_as_errors(errors: list[FieldError]) -> list[RowError]:
-    return [RowError(row=e.row or 0, column=e.column, message=e.message) for e in errors]

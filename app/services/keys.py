@@ -18,6 +18,7 @@ from app.errors import Forbidden, InvalidInput, NotFound, Unauthenticated
 from app.store.tables import ApiKey, utcnow
 
 ROLES: Final = ("tool", "engineer", "supervisor", "admin")
+NO_VALID_KEY: Final = "(no valid key)"
 
 #: What each action needs. Admin may do everything.
 PERMISSIONS: Final[dict[str, frozenset[str]]] = {
@@ -79,7 +80,7 @@ def authenticate(*, db: Database, authorization: str | None) -> Principal:
     scheme, _, key = authorization.partition(" ")
     if scheme.lower() != "bearer" or not key.strip():
         raise Unauthenticated("the Authorization header must read 'Bearer <key>'")
-    with db.transaction() as session:
+    with db.reading() as session:
         row = session.scalars(
             select(ApiKey).where(ApiKey.sha256 == _digest(key.strip()))
         ).one_or_none()
@@ -94,4 +95,4 @@ def label_for(*, db: Database, authorization: str | None) -> str:
     try:
         return authenticate(db=db, authorization=authorization).label
     except Unauthenticated:
-        return "(no valid key)"
+        return NO_VALID_KEY

@@ -55,14 +55,6 @@ def fit_row(serial: str, measurement_id: uuid.UUID, fit: OverlayFit) -> dict[str
     }
 
 
-def to_panel_frame(
-    product: Product, side: str, frame: str, sites: tuple[np.ndarray, ...]
-) -> tuple[np.ndarray, ...]:
-    if frame == "panel":
-        return sites
-    return mirror_sites(*sites, side=side, flip_axis=product.flip_axis)
-
-
 def supersede_current(
     session: Session, *, serial: str, layer: int, side: str, new_id: uuid.UUID
 ) -> uuid.UUID | None:
@@ -96,10 +88,14 @@ def accept(
     principal: Principal,
     body: bytes,
     idempotency_key: str | None = None,
-) -> tuple[bool, dict[str, Any]]:
+) -> tuple[bool, MeasurementRead]:
     """Store one measurement; returns (whether this is a replay of a stored answer, answer)."""
     digest = hashlib.sha256(body).hexdigest()
     with db.transaction() as session:
+        # The row lock serialises writers of one panel (PostgreSQL), so that each rebuilt state
+        # sees every fit committed before it, and a repeat of an Idempotency-Key waits for the
+        # first request and then finds its answer; SQLite's BEGIN IMMEDIATE already serialises.
+        panel = session.get(Panel, data.panel, with_for_update=True)
         if idempotency_key is not None:
             record = session.get(IdempotencyRecord, (idempotency_key, principal.key_id))
             if record is not None:
@@ -108,10 +104,7 @@ def accept(
                         f"Idempotency-Key '{idempotency_key}' was already used with a different "
                         "body; use a new key for a new measurement"
                     )
-                return True, record.response
-        # The row lock serialises writers of one panel (PostgreSQL), so that each rebuilt state
-        # sees every fit committed before it; SQLite's BEGIN IMMEDIATE already serialises.
-        panel = session.get(Panel, data.panel, with_for_update=True)
+                return True, MeasurementRead.model_validate(record.response)
         if panel is None:
             raise InvalidInput(
                 f"panel '{data.panel}' is not registered; register it first with "
@@ -136,7 +129,8 @@ def accept(
                 f"was not accepted: {errors[0].message}",
                 errors,
             )
-        px, py, pdx, pdy = to_panel_frame(product, data.side, data.frame, raw)
+        px, py, pdx, pdy = raw if data.frame == "panel" else mirror_sites(
+            *raw, side=data.side, flip_axis=product.flip_axis)
         fit = fit_measurement(px, py, pdx, pdy, trapezoid=product.model_terms == 8)
         new_id = uuid.uuid4()
         superseded = supersede_current(
@@ -163,10 +157,10 @@ def accept(
             tool=data.tool, measured_at=data.measured_at, received_at=received,
             superseded=str(superseded) if superseded else None,
             fit=fit_read(fit), state=panels.to_read(session, panel),
-        ).model_dump(mode="json")
+        )
         if idempotency_key is not None:
             session.add(IdempotencyRecord(
                 key=idempotency_key, key_owner=principal.key_id, body_sha256=digest,
-                status_code=201, response=answer,
+                status_code=201, response=answer.model_dump(mode="json"),
             ))
         return False, answer

@@ -39,7 +39,7 @@ def exposition(*, db: Database) -> str:
                 f'stackledger_http_requests_total{{method="{method}",route="{route}",'
                 f'status="{status}"}} {n}'
             )
-    with db.transaction() as session:
+    with db.reading() as session:
         measurements = session.scalar(select(func.count()).select_from(Measurement)) or 0
         rejected = session.scalar(select(func.count()).select_from(RejectedUpload)) or 0
         open_holds = session.scalar(

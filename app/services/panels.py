@@ -101,13 +101,15 @@ def create(*, db: Database, data: PanelCreate, actor: str) -> tuple[bool, PanelR
         panel = Panel(serial=data.serial, product_id=product.id, lot_id=lot.id)
         session.add(panel)
         session.flush()
+        # Every panel has a state from the start, so lists, filters and sorts see it as clear.
+        session.add(_empty_state(panel, product))
         audit.record(session, actor=actor, action="panel_register", subject=data.serial,
                      details={"product": data.product, "lot": data.lot})
         return True, to_read(session, panel)
 
 
 def get(*, db: Database, serial: str) -> PanelRead:
-    with db.transaction() as session:
+    with db.reading() as session:
         return to_read(session, get_or_raise(session, serial))
 
 
@@ -141,7 +143,7 @@ def list_panels(
     if sort not in SORTS:
         raise InvalidInput(f"sort must be one of {', '.join(SORTS)}, got '{sort}'")
     (key,) = SORTS[sort]
-    with db.transaction() as session:
+    with db.reading() as session:
         query: Select[Any] = (
             select(Panel, Product.code, Lot.code, PanelState)
             .join(Product, Product.id == Panel.product_id)
@@ -156,8 +158,8 @@ def list_panels(
             query = query.where(Panel.status == status)
         if risk:
             query = query.where(PanelState.risk == risk)
-        if sort != "serial":
-            query = query.where(key.is_not(None))
+        if sort == "p_exceed":
+            query = query.where(key.is_not(None))  # a panel with no measurement has no forecast
         if cursor:
             last_key, last_serial = _cursor_decode(cursor)
             if sort == "updated":
@@ -187,7 +189,7 @@ def list_panels(
 
 def stack(*, db: Database, serial: str) -> StackRead:
     """Per side and layer: the fit in force, its L2L worst and the cumulative FTB worst."""
-    with db.transaction() as session:
+    with db.reading() as session:
         panel = get_or_raise(session, serial)
         st = session.get(PanelState, serial)
         layers = state.current_layers(session, serial)
@@ -216,7 +218,7 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     sigma_x_um=f.sigma_x_um,
                     sigma_y_um=f.sigma_y_um,
                     l2l_worst_um=summary.get("l2l_worst_um", {}).get(side, {}).get(str(k), 0.0),
-                    cumulative_ftb_worst_um=_cumulative_at(cumulative, layers, side, k),
+                    cumulative_ftb_worst_um=_cumulative_at(cumulative, k),
                 ))
         return StackRead(
             serial=panel.serial,
@@ -227,9 +229,6 @@ def stack(*, db: Database, serial: str) -> StackRead:
         )
 
 
-def _cumulative_at(
-    cumulative: list[float], layers: dict[str, dict[int, Any]], side: str, k: int
-) -> float:
-    # cumulative[i] is the worst FTB over the first i+1 *present* layers of each side.
-    position = sorted(layers[side]).index(k)
-    return float(cumulative[position]) if position < len(cumulative) else 0.0
+def _cumulative_at(cumulative: list[float], k: int) -> float:
+    """Worst FTB over layers 1..k of both sides (entry k-1, stored dense by layer number)."""
+    return float(cumulative[k - 1]) if k - 1 < len(cumulative) else 0.0

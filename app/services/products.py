@@ -44,8 +44,9 @@ def check_points(product: Product) -> np.ndarray:
     return np.asarray(product.check_points_mm, dtype=np.float64).reshape(-1, 2)
 
 
-def create(*, db: Database, data: ProductCreate, actor: str) -> ProductRead:
-    """Register a product. An identical repeat returns the stored one; a different one is 409."""
+def create(*, db: Database, data: ProductCreate, actor: str) -> tuple[bool, ProductRead]:
+    """Register a product; returns (created, product). An identical repeat returns the stored
+    one; a different one is 409."""
     points = data.check_points_mm
     if points is None:
         grid = default_check_points(data.panel_width_mm, data.panel_height_mm)
@@ -61,7 +62,7 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> ProductRead:
             )
             if not same:
                 raise Conflict(f"product '{data.code}' exists with different settings")
-            return to_read(existing)
+            return False, to_read(existing)
         product = Product(
             **fields, check_points_mm=[list(p) for p in points], connection=connection
         )
@@ -69,9 +70,9 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> ProductRead:
         session.flush()
         audit.record(session, actor=actor, action="product_create", subject=data.code,
                      details=fields)
-        return to_read(product)
+        return True, to_read(product)
 
 
 def get(*, db: Database, code: str) -> ProductRead:
-    with db.transaction() as session:
+    with db.reading() as session:
         return to_read(get_by_code_or_raise(session, code))

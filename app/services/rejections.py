@@ -29,10 +29,10 @@ def record(
 
 
 def count(*, db: Database) -> int:
-    with db.transaction() as session:
+    with db.reading() as session:
         return int(session.scalar(select(func.count()).select_from(RejectedUpload)) or 0)
 
 
 def latest(*, db: Database) -> RejectedUpload | None:
-    with db.transaction() as session:
+    with db.reading() as session:
         return session.scalars(select(RejectedUpload).order_by(RejectedUpload.id.desc())).first()

@@ -16,7 +16,7 @@ from sqlalchemy.orm import Session
 
 from app.config import get_settings
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
-from app.overlay.resistance import resistance_ohm
+from app.overlay.resistance import RHO_COPPER_20C, resistance_ohm
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
 from app.services.history import product_history
@@ -86,7 +86,7 @@ def _resistance(product: Product, ftb_worst_um: float) -> float | None:
         (c["length_um"] + ftb_worst_um) * 1e-6,
         c["width_um"] * 1e-6,
         c["thickness_um"] * 1e-6,
-        rho_ohm_m=c.get("resistivity_ohm_m", 1.68e-8),
+        rho_ohm_m=c.get("resistivity_ohm_m", RHO_COPPER_20C),
     )
 
 
@@ -126,15 +126,10 @@ def _seed(serial: str) -> int:
     return int.from_bytes(serial.encode("utf-8")[-8:].rjust(8, b"\0"), "big") % (2**32)
 
 
-def _stack_summary(
-    layers: dict[str, dict[int, CurrentLayer]], stack: StackResult
-) -> dict[str, Any]:
-    order = {s: sorted(layers[s]) for s in ("A", "B")}
+def _stack_summary(l2l: dict[str, dict[int, float]], stack: StackResult) -> dict[str, Any]:
+    """What the stack view shows; ``cumulative_worst_um[k-1]`` is FTB over layers 1..k."""
     return {
-        "l2l_worst_um": {
-            "A": {str(k): float(v) for k, v in zip(order["A"], stack.l2l_worst_a_um, strict=True)},
-            "B": {str(k): float(v) for k, v in zip(order["B"], stack.l2l_worst_b_um, strict=True)},
-        },
+        "l2l_worst_um": {side: {str(k): v for k, v in l2l[side].items()} for side in ("A", "B")},
         "cumulative_worst_um": [float(v) for v in stack.cumulative_worst_um],
         "residual_sigma_um": list(stack.residual_sigma_um),
         "linear_worst_case_um": stack.linear_worst_case_um,
@@ -159,9 +154,14 @@ def refresh(
     order = {s: sorted(layers[s]) for s in ("A", "B")}
 
     def stacked(side: str) -> tuple[np.ndarray, np.ndarray]:
-        terms = [layers[side][k].terms for k in order[side]]
-        var = [layers[side][k].residual_var for k in order[side]]
-        return np.array(terms).reshape(-1, 8), np.array(var, dtype=np.float64).reshape(-1, 2)
+        # Dense by layer number (row k-1 is layer k; a missing layer adds nothing yet), so that
+        # the cumulative figures are "layers 1..k", whatever arrived out of order.
+        top = max(order[side], default=0)
+        terms, var = np.zeros((top, 8)), np.zeros((top, 2))
+        for k in order[side]:
+            terms[k - 1] = layers[side][k].terms
+            var[k - 1] = layers[side][k].residual_var
+        return terms, var
 
     terms_a, var_a = stacked("A")
     terms_b, var_b = stacked("B")
@@ -173,8 +173,8 @@ def refresh(
         histories = product_history(session, product=product)
     forecast = _forecast(product, layers, stack, histories, _seed(panel.serial))
     l2l = {
-        "A": dict(zip(order["A"], map(float, stack.l2l_worst_a_um), strict=True)),
-        "B": dict(zip(order["B"], map(float, stack.l2l_worst_b_um), strict=True)),
+        "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
+        "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
     }
     resistance = _resistance(product, stack.worst_um)
     assessment = assess(
@@ -212,7 +212,7 @@ def refresh(
         "ftb_worst_y_mm": float(stack.worst_at_mm[1]),
         "ftb_points": points_out,
         "l2l_worst_um": float(max([*l2l["A"].values(), *l2l["B"].values()], default=0.0)),
-        "stack": {**_stack_summary(layers, stack), "resistance_ohm": resistance},
+        "stack": {**_stack_summary(l2l, stack), "resistance_ohm": resistance},
         "forecast": {
             "final_worst_um": forecast.final_worst_um,
             "band_um": list(forecast.band_um),

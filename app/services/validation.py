@@ -1,5 +1,7 @@
-"""Checks that one measurement must pass before anything is stored, shared by the JSON API and
-the CSV import. Each failure says where (a JSON pointer, or a CSV row and column) and what."""
+"""Checks that one posted measurement must pass before anything is stored; each failure says
+where (a JSON pointer) and what. The CSV import makes the same checks vectorised over a chunk
+(``app.services.imports``); the catalogues in tests/api/test_bad_input.py and test_imports.py
+hold both to the same list."""
 
 from __future__ import annotations
 

@@ -70,7 +70,7 @@ def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(se
 def test_released_panel_is_not_held_again_unless_worse(setup):
     db, c, k = setup
     make_panel(db, "DRIFT")
-    _drift(c, k, "DRIFT", 4)
+    _drift(c, k, "DRIFT", 4, step=3.00001)  # an FTB that does not round to a tidy figure
     (hold,) = _open(c, k)
     r = c.post(f"/api/v1/holds/{hold['id']}/disposition",
                json={"action": "release", "note": "engineering review EV-17: continue"},
@@ -78,7 +78,7 @@ def test_released_panel_is_not_held_again_unless_worse(setup):
     assert r.status_code == 200, r.text
     assert r.json()["state"] == "closed" and r.json()["disposition"] == "release"
     # Re-measuring layer 4 with the same result: same figures, no new hold.
-    _post(c, k, "DRIFT", 4, "B", -3.0, minutes=2000)
+    _post(c, k, "DRIFT", 4, "B", -3.00001, minutes=2000)
     assert _open(c, k) == []
     panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
     assert panel["status"] == "in_process" and panel["risk"] == "at_risk"

@@ -51,7 +51,7 @@ def test_import_groups_fits_and_updates_state_like_the_api(setup):
     r = _post(c, k, _csv(*rows))
     assert r.status_code == 201, r.text
     assert r.json() == {"file": "m.csv", "rows": 75, "measurements": 3, "panels": 2,
-                        "superseded": 0, "errors": []}
+                        "superseded": 0}
     imported = c.get("/api/v1/panels/P0001", headers=k.headers("engineer")).json()
     # The same measurements posted one by one to a second panel give the same FTB.
     make_panel(db, "P0003")

@@ -1,9 +1,8 @@
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated
 
-from fastapi import APIRouter, File, Header, Request, UploadFile
-from fastapi.responses import JSONResponse
+from fastapi import APIRouter, File, Header, Request, Response, UploadFile
 
 from app.api.body import raw_body
 from app.api.deps import DbDep, PostMeasurement
@@ -21,17 +20,20 @@ router = APIRouter(prefix="/api/v1", tags=["measurements"], responses=PROBLEM_RE
 def post_measurement(
     data: MeasurementCreate,
     request: Request,
+    response: Response,
     db: DbDep,
     who: PostMeasurement,
     idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
-) -> Any:
+) -> MeasurementRead:
     """Post one layer's overlay measurement of one panel and side; answers the fit and the
     panel's updated state. A repeat for the same panel, layer and side supersedes."""
-    replayed, body = measurements.accept(
+    replayed, answer = measurements.accept(
         db=db, data=data, principal=who, body=raw_body(request),
         idempotency_key=idempotency_key,
     )
-    return JSONResponse(body, status_code=200 if replayed else 201)
+    if replayed:
+        response.status_code = 200
+    return answer
 
 
 @router.post("/imports", response_model=ImportRead, status_code=201)

@@ -1,6 +1,6 @@
 from __future__ import annotations
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Response
 
 from app.api.deps import CreateProduct, DbDep, ReadProduct
 from app.api.problems import PROBLEM_RESPONSES
@@ -10,10 +10,17 @@ from app.services import products
 router = APIRouter(prefix="/api/v1/products", tags=["products"], responses=PROBLEM_RESPONSES)
 
 
-@router.post("", response_model=ProductRead, status_code=201)
-def create_product(data: ProductCreate, db: DbDep, who: CreateProduct) -> ProductRead:
-    """Register a product: stack-up, side-B flip axis, limits and check points (admin)."""
-    return products.create(db=db, data=data, actor=who.label)
+@router.post("", response_model=ProductRead, status_code=201,
+             responses={200: {"model": ProductRead, "description": "Identical repeat"}})
+def create_product(
+    data: ProductCreate, db: DbDep, who: CreateProduct, response: Response
+) -> ProductRead:
+    """Register a product: stack-up, side-B flip axis, limits and check points (admin). An
+    identical repeat answers 200, a conflicting one 409."""
+    created, product = products.create(db=db, data=data, actor=who.label)
+    if not created:
+        response.status_code = 200
+    return product
 
 
 @router.get("/{code}", response_model=ProductRead)

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from fastapi import APIRouter
-from fastapi.responses import PlainTextResponse
+from fastapi.responses import JSONResponse, PlainTextResponse
 
 from app.api.deps import DbDep, Metrics
 from app.services import metrics
@@ -11,10 +11,13 @@ from app.services import metrics
 router = APIRouter(tags=["service"])
 
 
-@router.get("/api/v1/health")
-def health(db: DbDep) -> dict[str, str]:
-    """Liveness and database reachability; needs no key."""
-    return {"status": "ok", "database": metrics.database_ok(db=db)}
+@router.get("/api/v1/health", responses={503: {"description": "Database unreachable"}})
+def health(db: DbDep) -> JSONResponse:
+    """Liveness and database reachability (503 when the database does not answer); no key."""
+    database = metrics.database_ok(db=db)
+    ok = database == "ok"
+    return JSONResponse({"status": "ok" if ok else "degraded", "database": database},
+                        status_code=200 if ok else 503)
 
 
 @router.get("/metrics", response_class=PlainTextResponse)
