@@ -15,8 +15,6 @@ qualified engineers (``app.schemas.holds.CAUTION``).
 
 from __future__ import annotations
 
-import base64
-import json
 import uuid
 from datetime import datetime
 from typing import Any, Final
@@ -29,6 +27,7 @@ from app.errors import Conflict, InvalidInput, NotFound
 from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit
+from app.services import cursor as cursors
 from app.services.keys import Principal
 from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
 
@@ -217,17 +216,17 @@ def dispose(
 
 
 def _cursor(hold: Hold) -> str:
-    values = [hold.severity, hold.held_at.isoformat(), hold.panel, str(hold.id)]
-    return base64.urlsafe_b64encode(json.dumps(values).encode()).decode()
+    return cursors.encode([hold.severity, hold.held_at.isoformat(), hold.panel, str(hold.id)])
 
 
 def _after(cursor: str) -> ColumnElement[bool]:
     """Keyset condition: holds that come after the cursor in the hold-list order."""
+    severity, held_at, panel, hold_id = cursors.decode(cursor, 4)
     try:
-        severity, held_at, panel, hold_id = json.loads(base64.urlsafe_b64decode(cursor))
+        severity, panel = int(severity), str(panel)
         at, key = datetime.fromisoformat(held_at), uuid.UUID(hold_id)
     except (ValueError, TypeError) as exc:
-        raise InvalidInput("cursor is not one this service gave out") from exc
+        raise cursors.refused() from exc
     later = or_(Hold.held_at > at, and_(Hold.held_at == at, or_(
         Hold.panel > panel, and_(Hold.panel == panel, Hold.id > key))))
     return or_(Hold.severity < severity, and_(Hold.severity == severity, later))

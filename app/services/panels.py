@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import base64
-import json
 from datetime import datetime
 from typing import Any
 
@@ -24,6 +22,7 @@ from app.schemas.panels import (
     StackRead,
 )
 from app.services import audit, state
+from app.services import cursor as cursors
 from app.services.products import get_by_code_or_raise
 from app.store.tables import Lot, Panel, PanelState, Product, utcnow
 
@@ -113,20 +112,6 @@ def get(*, db: Database, serial: str) -> PanelRead:
         return to_read(session, get_or_raise(session, serial))
 
 
-def _cursor_encode(values: list[Any]) -> str:
-    return base64.urlsafe_b64encode(json.dumps(values).encode()).decode()
-
-
-def _cursor_decode(cursor: str) -> list[Any]:
-    try:
-        values = json.loads(base64.urlsafe_b64decode(cursor.encode()))
-    except ValueError as exc:
-        raise InvalidInput("cursor is not one this service gave out") from exc
-    if not isinstance(values, list) or len(values) != 2:
-        raise InvalidInput("cursor is not one this service gave out")
-    return values
-
-
 def list_panels(
     *,
     db: Database,
@@ -161,9 +146,15 @@ def list_panels(
         if sort == "p_exceed":
             query = query.where(key.is_not(None))  # a panel with no measurement has no forecast
         if cursor:
-            last_key, last_serial = _cursor_decode(cursor)
-            if sort == "updated":
-                last_key = datetime.fromisoformat(last_key)
+            last_key, last_serial = cursors.decode(cursor, 2)
+            try:
+                if sort == "updated":
+                    last_key = datetime.fromisoformat(last_key)
+                elif sort != "serial":
+                    last_key = float(last_key)
+                last_serial = str(last_serial)
+            except (TypeError, ValueError) as exc:
+                raise cursors.refused() from exc
             beyond = key < last_key if descending else key > last_key
             tie = Panel.serial < last_serial if descending else Panel.serial > last_serial
             query = query.where(or_(beyond, and_(key == last_key, tie)))
@@ -183,7 +174,7 @@ def list_panels(
                 "p_exceed": last[3].p_exceed if last[3] else None,
                 "updated": last[3].updated_at.isoformat() if last[3] else None,
             }[sort]
-            next_cursor = _cursor_encode([value, last[0].serial])
+            next_cursor = cursors.encode([value, last[0].serial])
         return PanelPage(items=items, next_cursor=next_cursor)
 
 

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import base64
+import json
+
 import pytest
 
 from tests.factories import client, make_keys, make_product, measurement
@@ -64,6 +67,8 @@ def test_list_filters_sorting_and_pagination(setup):
     bad = c.get("/api/v1/panels?status=lost", headers=h)
     assert bad.status_code == 422 and bad.json()["errors"][0]["pointer"].startswith("query:")
     assert c.get("/api/v1/panels?cursor=garbage", headers=h).status_code == 422
+    odd = base64.urlsafe_b64encode(json.dumps([1, "x"]).encode()).decode()
+    assert c.get(f"/api/v1/panels?sort=updated&cursor={odd}", headers=h).status_code == 422
 
 
 def test_product_defaults_and_repeat(setup):
