@@ -186,7 +186,6 @@ def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
     flag(scrapped.to_numpy(), "panel", lambda i: f"panel '{df['panel'].iat[i]}' is scrapped; "
          "no further measurements are accepted for it")
     df["row"] = rows
-    df["ok"] = ~bad
     return df
 
 

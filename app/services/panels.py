@@ -41,7 +41,7 @@ def get_or_raise(session: Session, serial: str) -> Panel:
     return panel
 
 
-def _empty_state(panel: Panel, product: Product) -> PanelState:
+def _empty_state(panel: Panel) -> PanelState:
     """The state of a registered panel with no measurement yet."""
     return PanelState(
         panel=panel.serial, layers_a=[], layers_b=[], missing_a=[], missing_b=[],
@@ -75,7 +75,7 @@ def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelState) -
 def to_read(session: Session, panel: Panel) -> PanelRead:
     product = session.get_one(Product, panel.product_id)
     lot = session.get_one(Lot, panel.lot_id)
-    st = session.get(PanelState, panel.serial) or _empty_state(panel, product)
+    st = session.get(PanelState, panel.serial) or _empty_state(panel)
     return read_model(panel, product.code, lot.code, st)
 
 
@@ -101,7 +101,7 @@ def create(*, db: Database, data: PanelCreate, actor: str) -> tuple[bool, PanelR
         session.add(panel)
         session.flush()
         # Every panel has a state from the start, so lists, filters and sorts see it as clear.
-        session.add(_empty_state(panel, product))
+        session.add(_empty_state(panel))
         audit.record(session, actor=actor, action="panel_register", subject=data.serial,
                      details={"product": data.product, "lot": data.lot})
         return True, to_read(session, panel)
@@ -162,8 +162,7 @@ def list_panels(
         rows = session.execute(query.order_by(*order).limit(limit + 1)).all()
         items = []
         for panel, product_code, lot_code, st in rows[:limit]:
-            prod = None if st is not None else session.get_one(Product, panel.product_id)
-            st = st or _empty_state(panel, prod)
+            st = st or _empty_state(panel)
             items.append(read_model(panel, product_code, lot_code, st))
         next_cursor = None
         if len(rows) > limit:

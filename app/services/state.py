@@ -99,12 +99,9 @@ def _forecast(
 ) -> Forecast:
     observed = {s: {k: cl.terms for k, cl in layers[s].items()} for s in ("A", "B")}
     n_obs = len(layers["A"]) + len(layers["B"])
-    # Residual scatter at a point: what the observed layers showed, plus the same average
-    # per-layer variance for every layer still to come (scatter adds in variance).
-    var = np.array([0.0, 0.0])
-    for s in ("A", "B"):
-        for cl in layers[s].values():
-            var += cl.residual_var
+    # Residual scatter at a point: what the observed layers showed (the stack's summed
+    # variance), plus the same average per-layer variance for every layer still to come.
+    var = np.square(np.asarray(stack.residual_sigma_um, dtype=np.float64))
     if n_obs:
         var += (2 * product.layers_per_side - n_obs) * var / n_obs
     return forecast_final(
