@@ -25,7 +25,7 @@ out = wide_console()
 def _fail(exc: DomainError) -> None:
     err.print(f"[red]error[/red]: {exc.detail}")
     for e in exc.errors[:20]:
-        where = f"row {e.row}" if e.row is not None else (e.pointer or "")
+        where = f"line {e.line}" if e.line is not None else (e.pointer or "")
         column = f", column {e.column}" if e.column else ""
         err.print(f"  {where}{column}: {e.message}")
     raise typer.Exit(2)
@@ -77,10 +77,14 @@ def import_file(db: Database, path: Path, label: str) -> None:
                   console=err, transient=False) as bar:
         task = bar.add_task(path.name, total=None)
         try:
-            result = imports.import_path(db=db, path=path, label=label,
-                                         progress=lambda n: bar.advance(task, n))
+            repeat, result = imports.import_path(db=db, path=path, label=label,
+                                                 progress=lambda n: bar.advance(task, n))
         except DomainError as exc:
             _fail(exc)
+    if repeat:
+        err.print(f"{path.name} was imported before with the same content; nothing applied "
+                  "again")
+        return
     err.print(f"imported {result.rows:,} rows: {result.measurements:,} measurements of "
               f"{result.panels:,} panels ({result.superseded} superseded)")
 

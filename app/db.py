@@ -17,6 +17,7 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
 from app.config import get_settings
+from app.store.cache import RevisionCache
 
 _READING = "stackledger_reading"
 
@@ -60,6 +61,8 @@ class Database:
         self._read_sessions = sessionmaker(
             self.engine.execution_options(**{_READING: True}), expire_on_commit=False
         )
+        #: Learned product histories, by product id, valid for one products.history_revision.
+        self.history: RevisionCache[Any] = RevisionCache()
 
     @contextmanager
     def transaction(self) -> Iterator[Session]:
@@ -73,5 +76,6 @@ class Database:
         with self._read_sessions() as session, session.begin():
             yield session
 
-    def dispose(self) -> None:
+    def close(self) -> None:
+        """Close every pooled connection (the last one to close folds SQLite's WAL back)."""
         self.engine.dispose()

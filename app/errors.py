@@ -17,7 +17,7 @@ class FieldError:
 
     message: str
     pointer: str | None = None  # JSON pointer into the body, e.g. "/sites/3/dx_um"
-    row: int | None = None  # CSV data row, 1-based, header excluded
+    line: int | None = None  # CSV file line, 1-based, the header is line 1
     column: str | None = None
 
     def as_dict(self) -> dict[str, Any]:

@@ -35,7 +35,7 @@ def create_app(db: Database | None = None) -> FastAPI:
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         yield
         if owned:
-            app.state.db.dispose()
+            app.state.db.close()
 
     owned = db is None
     app = FastAPI(

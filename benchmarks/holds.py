@@ -65,7 +65,7 @@ def store(backend: str, tmp: Path, name: str) -> Iterator[Database]:
         try:
             yield db
         finally:
-            db.dispose()
+            db.close()
 
 
 def client_for(db: Database) -> Any:

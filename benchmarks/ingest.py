@@ -144,7 +144,7 @@ def import_child(url: str, path: str, profile: bool, queue: Any) -> None:
     out = io.StringIO()
     if profiler:
         pstats.Stats(profiler, stream=out).sort_stats("cumulative").print_stats(15)
-    db.dispose()
+    db.close()
     queue.put({
         "seconds": t1 - t0, "cpu_s": cpu, "rows": result.rows, "measurements": result.measurements,
         "panels": result.panels, "rss_before_mb": rss_before, "rss_peak_mb": _data.peak_rss_mb(),
@@ -181,7 +181,7 @@ def repeated(make_url: Any, names: list[str], path: Path, runs: int, profile: bo
             t = time.perf_counter()
             _data.register(db, names)
             setup = time.perf_counter() - t
-            db.dispose()
+            db.close()
             results.append(end_to_end(url, path, profile=i == runs))
     timed = results[:runs]
     best = dict(min(timed, key=lambda r: r["seconds"]))

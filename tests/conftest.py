@@ -20,7 +20,7 @@ from sqlalchemy.engine import make_url
 
 from app.config import get_settings
 from app.db import Database
-from app.services import history
+
 from app.store.migrate import upgrade
 from app.store.tables import Base
 
@@ -34,7 +34,7 @@ def sqlite_template(tmp_path_factory: pytest.TempPathFactory) -> Path:
     path = tmp_path_factory.mktemp("template") / "template.db"
     db = Database(f"sqlite:///{path}")
     upgrade(db.engine)
-    db.dispose()  # the last connection to close folds the WAL back into the file
+    db.close()  # the last connection to close folds the WAL back into the file
     return path
 
 
@@ -52,7 +52,7 @@ def pg_url() -> Iterator[str]:
     url = make_url(PG_ADMIN_URL).set(database=name).render_as_string(hide_password=False)
     db = Database(url)
     upgrade(db.engine)
-    db.dispose()
+    db.close()
     try:
         yield url
     finally:
@@ -65,7 +65,6 @@ def pg_url() -> Iterator[str]:
 def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
     """A migrated, empty store on each database."""
     get_settings.cache_clear()
-    history.forget()
     if request.param == "sqlite":
         path = tmp_path / "store.db"
         shutil.copy(request.getfixturevalue("sqlite_template"), path)
@@ -78,5 +77,4 @@ def db(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Database]:
     try:
         yield database
     finally:
-        database.dispose()
-        history.forget()
+        database.close()

@@ -58,6 +58,6 @@ def test_bad_import_is_refused_and_kept(env, tmp_path):
     path.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
     r = CliRunner().invoke(cli, ["import", str(path)])
     assert r.exit_code == 2
-    assert "row 1, column side" in r.stderr
+    assert "line 2, column side" in r.stderr
     kept = rejections.latest(db=env)
     assert kept.endpoint == "cli import bad.csv" and kept.body == path.read_bytes()

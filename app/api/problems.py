@@ -13,7 +13,7 @@ from typing import Any, Final
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel
+from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
@@ -28,9 +28,10 @@ UPLOAD_PATHS: Final = frozenset({"/api/v1/measurements", "/api/v1/imports", "/ap
 
 class ProblemError(BaseModel):
     message: str
-    pointer: str | None = None
-    row: int | None = None
-    column: str | None = None
+    pointer: str | None = Field(default=None, description="JSON pointer into the body, or "
+                                "'query:/name' for a query parameter.")
+    line: int | None = Field(default=None, description="CSV file line (the header is line 1).")
+    column: str | None = Field(default=None, description="CSV column.")
 
 
 class Problem(BaseModel):

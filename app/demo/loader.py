@@ -16,7 +16,6 @@ from app.reports import print_closest, print_holds
 from app.schemas.panels import PanelCreate, PanelRead
 from app.schemas.products import ProductCreate
 from app.services import holds, imports, keys, panels, products
-from app.services.history import forget
 from app.store.migrate import upgrade
 from app.store.tables import Product
 
@@ -28,7 +27,6 @@ def load_into(db: Database, *, load: Callable[[Database], None] | None = None) -
     """Load sample_data/ into ``db`` (already migrated); returns a demo key per role.
 
     ``load`` imports the measurements file (the CLI passes one with a progress bar)."""
-    forget()
     for item in json.loads((SAMPLE_DATA / "products.json").read_text(encoding="utf-8")):
         products.create(db=db, data=ProductCreate(**item), actor="demo")
     with (SAMPLE_DATA / "panels.csv").open(encoding="utf-8", newline="") as f:
@@ -75,5 +73,5 @@ def load_demo(path: Path, *, console: Console,
         for role, key in demo_keys.items():
             console.print(f"  {role:<10} {key}")
     finally:
-        db.dispose()
+        db.close()
     return url

@@ -74,3 +74,25 @@ def evaluate(terms: FloatArray, x: FloatArray, y: FloatArray) -> tuple[FloatArra
     dx = t[..., 0] + t[..., 2] * x - t[..., 4] * y + t[..., 6] * xy
     dy = t[..., 1] + t[..., 3] * y + t[..., 5] * x + t[..., 7] * xy
     return dx, dy
+
+
+def report_units(terms: FloatArray) -> dict[str, float]:
+    """The one conversion of a raw term vector to reporting units.
+
+    Tx, Ty in um; Sx, Sy in ppm; Ox, Oy, rotation (Ox + Oy)/2 and non-orthogonality Oy - Ox in
+    urad; Kx, Ky in um/mm^2.
+    """
+    t = [float(v) for v in np.asarray(terms, dtype=np.float64)]
+    ox, oy = t[4] * PER_MM_TO_MICRO, t[5] * PER_MM_TO_MICRO
+    return {
+        "tx_um": t[0],
+        "ty_um": t[1],
+        "sx_ppm": t[2] * PER_MM_TO_MICRO,
+        "sy_ppm": t[3] * PER_MM_TO_MICRO,
+        "ox_urad": ox,
+        "oy_urad": oy,
+        "rotation_urad": (ox + oy) / 2,
+        "nonorthogonality_urad": oy - ox,
+        "kx_um_per_mm2": t[6],
+        "ky_um_per_mm2": t[7],
+    }

@@ -1,40 +1,51 @@
 from __future__ import annotations
 
-import math
 from datetime import datetime
 from typing import Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field
 
 from app.schemas.panels import PanelRead
+
+# The schema gives shape and types only. What a value must be (side A or B, a time with a zone,
+# a finite number on the panel, ...) is checked by the one catalogue that CSV imports go
+# through too (app.services.checks), so the same bad value gets the same message both ways;
+# enums and limits below are documentation of those checks.
 
 
 class SiteIn(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    x_mm: float
-    y_mm: float
-    dx_um: float
-    dy_um: float
+    x_mm: float = Field(description="Site x about the panel centre, mm.")
+    y_mm: float = Field(description="Site y about the panel centre, mm.")
+    dx_um: float = Field(description="Overlay in x (measured minus reference), um.")
+    dy_um: float = Field(description="Overlay in y (measured minus reference), um.")
 
-    @field_validator("x_mm", "y_mm", "dx_um", "dy_um")
-    @classmethod
-    def _finite(cls, v: float) -> float:
-        if not math.isfinite(v):
-            raise ValueError("must be a finite number")
-        return v
+
+def _text(description: str, required: bool = True) -> object:
+    extra = {"minLength": 1, "maxLength": 64} if required else {"maxLength": 64}
+    return Field(default=... if required else None, description=description,
+                 json_schema_extra=extra)
 
 
 class MeasurementCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    panel: str = Field(min_length=1, max_length=64)
-    layer: int
-    side: Literal["A", "B"]
-    frame: Literal["tool", "panel"] = "tool"
-    tool: str = Field(min_length=1, max_length=64)
-    measured_at: AwareDatetime
-    sites: list[SiteIn]
+    panel: str = _text("Panel serial.")  # type: ignore[assignment]
+    layer: int = Field(description="Build-up layer, 1..layers_per_side of the product.")
+    side: str = Field(description="Side of the panel.", json_schema_extra={"enum": ["A", "B"]})
+    frame: str = Field(default="tool", description="Frame of the site coordinates and vectors: "
+                       "'tool' as the metrology tool saw the side, or 'panel'.",
+                       json_schema_extra={"enum": ["tool", "panel"]})
+    tool: str = _text("Exposure tool that printed the layer.")  # type: ignore[assignment]
+    measured_at: str = Field(description="ISO 8601 time with a time zone.",
+                             json_schema_extra={"format": "date-time"})
+    metrology_tool: str | None = _text("Metrology tool that measured it.",  # type: ignore[assignment]
+                                       required=False)
+    recipe: str | None = _text("Exposure recipe.", required=False)  # type: ignore[assignment]
+    artwork: str | None = _text("Reticle or artwork id.", required=False)  # type: ignore[assignment]
+    shift: str | None = _text("Operator shift.", required=False)  # type: ignore[assignment]
+    sites: list[SiteIn] = Field(description="1 to 2,000 sites.")
 
 
 class FitRead(BaseModel):

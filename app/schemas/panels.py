@@ -5,7 +5,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-PanelStatus = Literal["in_process", "on_hold", "scrapped", "complete"]
+from app.services.lifecycle import PanelStatus
+
 RiskLevel = Literal["clear", "watch", "at_risk", "over_limit"]
 
 

@@ -1,29 +1,32 @@
-"""Product history for the forecast: per side and layer, what recent panels of the product did.
+"""Product history for the forecast: per side and layer, what completed panels of the product
+did.
 
-The window is the ``history_window_panels`` most recently registered panels of the product
-(default 200). The core decides per layer whether there is enough history (see
+The window is the ``history_window_panels`` panels of the product that most recently completed
+their stack (every layer of both sides in force; ``panels.completed_at``), so a panel still in
+process, the one being forecast included, never feeds the history it is judged by. The core
+decides per layer whether there is enough history (see
 ``app.overlay.forecast.history_from_panels``) and falls back to the limit-based prior otherwise.
 
-Learning the history reads a few thousand fits, so it is kept per product for
-``HISTORY_MAX_AGE_S`` seconds inside the process; an import batch learns it once per product.
+Learning reads a few thousand fits, so the result is kept in ``db.history`` (a
+``RevisionCache``) under the product's ``history_revision``. The pipeline bumps that revision in
+the transaction that completes a panel or replaces a measurement of a completed panel, the only
+writes that change what is learned; every process then learns again on its next use.
 """
 
 from __future__ import annotations
 
 import math
-import time
-from typing import Final
 
 import numpy as np
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
+from app.db import Database
 from app.overlay.forecast import LayerHistory, history_from_panels, prior_history
 from app.store.tables import Fit, Measurement, Panel, Product
 
-HISTORY_MAX_AGE_S: Final = 60.0
-_cache: dict[tuple[int, int], tuple[float, tuple[LayerHistory, LayerHistory]]] = {}
+Histories = tuple[LayerHistory, LayerHistory]
 
 
 def prior(product: Product) -> LayerHistory:
@@ -34,12 +37,12 @@ def prior(product: Product) -> LayerHistory:
 
 
 def learn(session: Session, *, product: Product) -> tuple[LayerHistory, LayerHistory]:
-    """Learn side A's and side B's layer history from the product's recent panels."""
+    """Learn side A's and side B's layer history from the product's recently completed panels."""
     window = get_settings().history_window_panels
     serials = session.scalars(
         select(Panel.serial)
-        .where(Panel.product_id == product.id)
-        .order_by(Panel.created_at.desc(), Panel.serial.desc())
+        .where(Panel.product_id == product.id, Panel.completed_at.is_not(None))
+        .order_by(Panel.completed_at.desc(), Panel.serial.desc())
         .limit(window)
     ).all()
     fallback = prior(product)
@@ -67,18 +70,7 @@ def learn(session: Session, *, product: Product) -> tuple[LayerHistory, LayerHis
     )
 
 
-def product_history(session: Session, *, product: Product) -> tuple[LayerHistory, LayerHistory]:
-    """The cached history of a product, learned again when older than HISTORY_MAX_AGE_S."""
-    key = (id(session.get_bind()), product.id)
-    hit = _cache.get(key)
-    now = time.monotonic()
-    if hit is not None and now - hit[0] < HISTORY_MAX_AGE_S:
-        return hit[1]
-    histories = learn(session, product=product)
-    _cache[key] = (now, histories)
-    return histories
-
-
-def forget() -> None:
-    """Drop every cached history (tests, and after bulk changes)."""
-    _cache.clear()
+def product_history(db: Database, session: Session, *, product: Product) -> Histories:
+    """The product's history at its current ``history_revision``, learned once per revision."""
+    return db.history.get(product.id, product.history_revision,  # type: ignore[no-any-return]
+                          lambda: learn(session, product=product))

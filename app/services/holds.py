@@ -29,6 +29,7 @@ from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit
 from app.services import cursor as cursors
 from app.services.keys import Principal
+from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
 
 HOLDING_LEVELS: Final = ("at_risk", "over_limit")
@@ -36,12 +37,12 @@ AUTOMATIC: Final = "stackledger (automatic)"
 
 
 def _figures(state: PanelState) -> dict[str, Any]:
-    forecast = state.forecast or {}
+    forecast = state.forecast
     return {
         "ftb_worst_um": state.ftb_worst_um,
         "p_exceed": state.p_exceed,
-        "final_worst_um": forecast.get("final_worst_um"),
-        "band_um": forecast.get("band_um"),
+        "final_worst_um": forecast.final_worst_um if forecast else None,
+        "band_um": list(forecast.band_um) if forecast else None,
         "l2l_worst_um": state.l2l_worst_um,
         "layers": {"A": max(state.layers_a, default=0), "B": max(state.layers_b, default=0)},
         "risk": state.risk,
@@ -73,7 +74,7 @@ def apply_automatic(
     session: Session, *, panel: Panel, state: PanelState, assessment: RiskAssessment
 ) -> Hold | None:
     """Put the panel on hold if its new state calls for it; returns the new hold, if any."""
-    if assessment.level not in HOLDING_LEVELS or panel.status == "scrapped":
+    if assessment.level not in HOLDING_LEVELS or panel.status == PanelStatus.SCRAPPED:
         return None
     if _open_hold(session, panel.serial) is not None:
         return None
@@ -86,7 +87,7 @@ def apply_automatic(
         held_by=AUTOMATIC,
     )
     session.add(hold)
-    panel.status = "on_hold"
+    panel.status = next_status(panel.status, PanelEvent.HELD, all_layers_on=False)
     audit.record(session, actor=AUTOMATIC, action="hold", subject=panel.serial,
                  details={"hold": str(hold.id), "rule": hold.rule, **hold.figures})
     return hold
@@ -107,16 +108,14 @@ def _with_panel() -> Select[Any]:
 
 def _to_read(row: Row[Any]) -> HoldRead:
     hold, lot, product, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
-    forecast = forecast or {}
-    band = forecast.get("band_um")
     return HoldRead(
         id=str(hold.id), panel=hold.panel, lot=lot, product=product,
         state=hold.state, kind=hold.kind, rule=hold.rule, risk=risk or "clear",
         severity=hold.severity,
         layers_reached={"A": max(layers_a or [], default=0), "B": max(layers_b or [], default=0)},
         ftb_now_um=ftb or 0.0,
-        forecast_final_um=forecast.get("final_worst_um"),
-        forecast_band_um=tuple(band) if band else None,
+        forecast_final_um=forecast.final_worst_um if forecast else None,
+        forecast_band_um=forecast.band_um if forecast else None,
         p_exceed=p_exceed,
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
@@ -135,7 +134,7 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
         panel = session.get(Panel, serial, with_for_update=True)
         if panel is None:
             raise NotFound(f"no panel with serial '{serial}'")
-        if panel.status == "scrapped":
+        if panel.status == PanelStatus.SCRAPPED:
             raise Conflict(f"panel '{serial}' is scrapped; it cannot be held")
         if (existing := _open_hold(session, serial)) is not None:
             raise Conflict(f"panel '{serial}' already has an open hold ({existing.id})")
@@ -148,7 +147,8 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
             held_at=utcnow(), held_by=principal.label,
         )
         session.add(hold)
-        panel.status = "on_hold"
+        panel.status = next_status(panel.status, PanelEvent.HELD, all_layers_on=False,
+                                   serial=serial)
         audit.record(session, actor=principal.label, action="hold", subject=serial,
                      details={"hold": str(hold.id), "rule": "manual", "reason": hold.reason,
                               **figures})
@@ -156,13 +156,10 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
         return _read(session, hold)
 
 
-def _built_status(session: Session, panel: Panel) -> str:
-    """The status a released panel goes back to: complete when every layer is on."""
+def _all_layers_on(session: Session, panel: Panel) -> bool:
     state = session.get(PanelState, panel.serial)
     full = session.get_one(Product, panel.product_id).layers_per_side
-    if state is not None and len(state.layers_a) == full and len(state.layers_b) == full:
-        return "complete"
-    return "in_process"
+    return state is not None and len(state.layers_a) == full and len(state.layers_b) == full
 
 
 def _last_layer(state: PanelState | None) -> dict[str, int]:
@@ -200,15 +197,16 @@ def dispose(
         hold.disposed_by = principal.label
         details: dict[str, Any] = {"hold": hold_id, "action": data.action, "note": data.note,
                                    **figures}
+        event = {"release": PanelEvent.RELEASED, "scrap": PanelEvent.SCRAPPED,
+                 "rework": PanelEvent.REWORKED}[data.action]
         if data.action == "release":
             hold.figures = {**hold.figures, "at_release": figures}
-            panel.status = _built_status(session, panel)
-        elif data.action == "scrap":
-            panel.status = "scrapped"
-        else:
+        elif data.action == "rework":
             details["rework"] = _last_layer(state)
             hold.figures = {**hold.figures, "rework": details["rework"]}
-            panel.status = "in_process"
+        panel.status = next_status(panel.status, event,
+                                   all_layers_on=_all_layers_on(session, panel),
+                                   serial=panel.serial)
         audit.record(session, actor=principal.label, action=f"disposition_{data.action}",
                      subject=hold.panel, details=details)
         session.flush()

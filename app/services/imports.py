@@ -1,86 +1,75 @@
-"""CSV import of site rows, all or nothing per file.
+"""CSV import: read a file of site rows into the batch form, then the one pipeline.
 
-One row per site, header ``panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um``
-(columns in any order). Consecutive rows with the same panel, layer, side, frame, tool and
-measured_at form one measurement; a measurement whose rows reappear later in the file,
-not next to each other, is an error rather than a silent second measurement.
+One row per site; the header names the columns, in any order:
+``panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um``, and optionally
+``metrology_tool,recipe,artwork,shift``. Consecutive rows that agree on every column but the
+four site columns form one measurement; a measurement whose rows reappear further down, not
+next to the first ones, is refused rather than read as a second measurement.
 
-The file is read in chunks (``import_chunk_rows``), checked and fitted chunk by chunk (fits
-vectorised over the chunk's measurements) and written inside one transaction; after the first
-error nothing more is written but checking goes on, so the answer lists every problem (up to
-``MAX_REPORTED``) with row, column and message, and the transaction is rolled back. When every
-row is good, the states of the touched panels are rebuilt once each, at the end.
+This module only reads: what a cell must be to be read (a number, a whole layer number) is
+reported here, with its file line (the header is line 1) and column; everything else is the
+catalogue's (``app.services.checks``), exactly as for a posted measurement. A file is all or
+nothing, and the answer lists every problem (up to 200), in line order.
+
+A file is also idempotent: its content, by the same API key, is imported once. Sent again
+(with or without an Idempotency-Key header) it is answered as a repeat, not applied again.
 """
 
 from __future__ import annotations
 
+import hashlib
 import io
-import uuid
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any, Final
+from typing import IO, Final
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
 from app.db import Database
 from app.errors import DomainError, FieldError, InvalidInput
-from app.overlay.fit import fit_many
-from app.overlay.frames import mirror_sites
 from app.schemas.measurements import ImportRead
-from app.services import holds, rejections, state
-from app.services.history import learn
-from app.services.measurements import fit_row
-from app.store import bulk
-from app.store.tables import Fit, Measurement, Panel, PanelState, Product, Site, utcnow
+from app.services import idempotency, intake, rejections
+from app.services.batch import GENEALOGY, SITE_FIELDS, CsvLocator, MeasurementBatch
+from app.services.checks import MAX_REPORTED
 
-COLUMNS: Final = ("panel", "layer", "side", "frame", "tool", "measured_at",
-                  "x_mm", "y_mm", "dx_um", "dy_um")
-NUMERIC: Final = ("x_mm", "y_mm", "dx_um", "dy_um")
-KEY: Final = ["panel", "layer", "side", "frame", "tool", "measured_at"]
-MAX_REPORTED: Final = 200
+REQUIRED: Final = ("panel", "layer", "side", "frame", "tool", "measured_at", *SITE_FIELDS)
+OPTIONAL: Final = GENEALOGY
 
 Progress = Callable[[int], None]
 
 
 @dataclass
-class _Run:
-    """What one import has seen so far."""
+class _Reading:
+    """What the reader has gathered so far."""
 
-    name: str
-    label: str
+    key_columns: list[str]
     errors: list[FieldError] = field(default_factory=list)
+    heads: list[tuple[str, ...]] = field(default_factory=list)
+    head_rows: list[int] = field(default_factory=list)
+    unreadable: set[int] = field(default_factory=set)
+    seen: dict[tuple[str, ...], int] = field(default_factory=dict)
+    sites: list[np.ndarray] = field(default_factory=list)
     rows: int = 0
-    measurements: int = 0
-    superseded: int = 0
-    panels: dict[str, tuple[Panel, Product] | None] = field(default_factory=dict)
-    current: dict[tuple[str, str, int], uuid.UUID] = field(default_factory=dict)
-    seen_keys: set[tuple[Any, ...]] = field(default_factory=set)
-    last_key: tuple[Any, ...] | None = None
-    touched: set[str] = field(default_factory=set)
+    last_key: tuple[str, ...] | None = None
 
-    def error(self, row: int, column: str | None, message: str) -> None:
+    def error(self, line: int, column: str | None, message: str) -> None:
         if len(self.errors) < MAX_REPORTED:
-            self.errors.append(FieldError(message=message, row=row, column=column))
+            self.errors.append(FieldError(message=message, line=line, column=column))
 
 
-def _text(stream: IO[bytes]) -> io.TextIOWrapper:
-    return io.TextIOWrapper(stream, encoding="utf-8", errors="strict", newline="")
-
-
-def _check_header(text: io.TextIOWrapper) -> list[str]:
+def _header(text: io.TextIOWrapper) -> list[str]:
     try:
         header = text.readline()
     except UnicodeDecodeError as exc:
         raise InvalidInput(f"the file is not UTF-8 text (byte {exc.start} of the first line)",
-                           [FieldError(message="not UTF-8", row=0)]) from exc
+                           [FieldError(message="not UTF-8", line=1)]) from exc
     names = [h.strip().lstrip("\ufeff") for h in header.rstrip("\r\n").split(",")]
-    missing = [c for c in COLUMNS if c not in names]
-    unknown = [c for c in names if c not in COLUMNS]
+    missing = [c for c in REQUIRED if c not in names]
+    unknown = [c for c in names if c not in REQUIRED and c not in OPTIONAL]
     if missing or unknown or len(names) != len(set(names)):
         parts = []
         if missing:
@@ -90,315 +79,178 @@ def _check_header(text: io.TextIOWrapper) -> list[str]:
         if len(names) != len(set(names)):
             parts.append("a column appears twice")
         raise InvalidInput(
-            f"wrong CSV header ({'; '.join(parts)}); expected: {','.join(COLUMNS)}",
-            [FieldError(message="wrong header", row=0)],
+            f"wrong CSV header ({'; '.join(parts)}); expected: {','.join(REQUIRED)} "
+            f"(optional: {','.join(OPTIONAL)})",
+            [FieldError(message="wrong header", line=1)],
         )
     return names
 
 
-def _chunks(text: io.TextIOWrapper, names: list[str], size: int) -> Iterator[pd.DataFrame]:
-    reader = pd.read_csv(
-        text, names=names, header=None, dtype=str, keep_default_na=False, chunksize=size,
-        engine="c",
-    )
-    try:
-        yield from reader
-    except UnicodeDecodeError as exc:
-        raise InvalidInput(f"the file is not UTF-8 text (byte {exc.start} of a chunk)",
-                           [FieldError(message="not UTF-8", row=0)]) from exc
-    except pd.errors.ParserError as exc:
-        raise InvalidInput(f"the file is not CSV as expected: {exc}") from exc
+def _chunks(text: io.TextIOWrapper, names: list[str], size: int) -> pd.io.parsers.TextFileReader:
+    return pd.read_csv(text, names=names, header=None, dtype=str, keep_default_na=False,
+                       chunksize=size, engine="c", skip_blank_lines=False)
 
 
-def _load_panels(session: Session, run: _Run, serials: list[str]) -> None:
-    # Sorted, so that two imports lock shared panels in the same order (no deadlock per chunk).
-    new = sorted(s for s in serials if s not in run.panels)
-    if not new:
-        return
-    for start in range(0, len(new), 500):
-        part = new[start:start + 500]
-        rows = session.execute(
-            select(Panel, Product).join(Product, Product.id == Panel.product_id)
-            .where(Panel.serial.in_(part)).with_for_update(of=Panel)
-        ).all()
-        found = {p.serial: (p, prod) for p, prod in rows}
-        current = session.execute(
-            select(Measurement.panel, Measurement.side, Measurement.layer, Measurement.id)
-            .where(Measurement.panel.in_(part), Measurement.superseded_by.is_(None))
-        ).all()
-        for serial, side, layer, mid in current:
-            run.current[(serial, side, layer)] = mid
-        for s in part:
-            run.panels[s] = found.get(s)
-
-
-def _numbers(column: pd.Series) -> np.ndarray:
-    """Text to float64; text that is not a number becomes NaN (and is reported as such)."""
+def _numbers(column: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Text to float64, and where a text is not a number at all ("NaN" and "inf" are numbers
+    here; the catalogue refuses them as not finite)."""
     try:  # the common case, every cell a number: numpy's cast is twice as fast as to_numeric
-        return np.asarray(column.to_numpy(), dtype=np.float64)
+        return np.asarray(column.to_numpy(), dtype=np.float64), np.zeros(len(column), bool)
     except ValueError:
-        return pd.to_numeric(column, errors="coerce").to_numpy(dtype=np.float64)
+        values = pd.to_numeric(column, errors="coerce").to_numpy(dtype=np.float64)
+        spelled = column.str.strip().str.lower().str.lstrip("+-").isin(["nan"]).to_numpy()
+        return values, np.isnan(values) & ~spelled
 
 
-def _row_checks(df: pd.DataFrame, run: _Run, first_row: int) -> pd.DataFrame:
-    """Row-level checks, vectorised; returns the frame with parsed columns."""
-    settings = get_settings()
-    rows = np.arange(first_row, first_row + len(df))
-    bad = np.zeros(len(df), dtype=bool)
-
-    def flag(mask: np.ndarray, column: str, message: Callable[[int], str]) -> None:
-        nonlocal bad
-        for i in np.flatnonzero(mask & ~bad)[: MAX_REPORTED]:
-            run.error(int(rows[i]), column, message(int(i)))
-        bad |= mask
-
-    for c in NUMERIC:
-        values = _numbers(df[c])
-        flag(~np.isfinite(values), c, lambda i, c=c: f"'{df[c].iat[i]}' is not a finite number")
-        df[c] = values
-    layer = pd.to_numeric(df["layer"], errors="coerce").to_numpy(dtype=np.float64)
-    flag(~np.isfinite(layer) | (layer != np.round(layer)), "layer",
-         lambda i: f"'{df['layer'].iat[i]}' is not a whole layer number")
-    df["layer"] = np.where(np.isfinite(layer), layer, 0).astype(np.int64)
-    flag(~df["side"].isin(["A", "B"]).to_numpy(), "side",
-         lambda i: f"side must be 'A' or 'B', got '{df['side'].iat[i]}'")
-    flag(~df["frame"].isin(["tool", "panel"]).to_numpy(), "frame",
-         lambda i: f"frame must be 'tool' or 'panel', got '{df['frame'].iat[i]}'")
-    tool_length = df["tool"].str.len().to_numpy()
-    flag((tool_length == 0) | (tool_length > 64), "tool",
-         lambda i: "tool must be 1 to 64 characters")
-    # One measurement's rows share a time: parse each distinct text once.
-    codes, texts = pd.factorize(df["measured_at"])
-    parsed = pd.to_datetime(pd.Series(texts), errors="coerce", utc=True, format="ISO8601")
-    zoned = pd.Series(texts).str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
-    stamps = pd.Series(parsed.to_numpy()[codes], index=df.index)
-    flag((stamps.isna() | ~zoned.to_numpy()[codes]).to_numpy(), "measured_at",
-         lambda i: f"'{df['measured_at'].iat[i]}' is not an ISO 8601 time with a time zone")
-    df["stamp"] = stamps
-    length = np.hypot(df["dx_um"].to_numpy(), df["dy_um"].to_numpy())
-    limit = settings.max_abs_displacement_um
-    flag(length > limit, "dx_um",
-         lambda i: f"displacement of {length[i]:.1f} um is over {limit:.0f} um (1 mm)")
-    known = df["panel"].isin([s for s, e in run.panels.items() if e is not None]).to_numpy()
-    flag(~known, "panel", lambda i: f"panel '{df['panel'].iat[i]}' is not registered")
-    scrapped = df["panel"].isin(
-        [s for s, e in run.panels.items() if e is not None and e[0].status == "scrapped"])
-    flag(scrapped.to_numpy(), "panel", lambda i: f"panel '{df['panel'].iat[i]}' is scrapped; "
-         "no further measurements are accepted for it")
-    df["row"] = rows
-    return df
-
-
-def _group_checks(df: pd.DataFrame, run: _Run) -> None:
-    """Checks over each measurement's rows (product limits, site count, duplicate sites, rows
-    kept together), vectorised over the chunk: one Python step per measurement at most."""
-    settings = get_settings()
-    starts, counts = _bounds(df)
-    rows = df["row"].to_numpy()
-    heads = df.iloc[starts]
-    entries = [run.panels.get(serial) for serial in heads["panel"]]
-    for j, key in enumerate(heads[KEY].itertuples(index=False, name=None)):
-        if key in run.seen_keys:
-            run.error(int(rows[starts[j]]), "panel", "rows of this measurement appear earlier "
-                      "in the file, not next to these; keep a measurement's rows together")
-        run.seen_keys.add(key)
-        entry = entries[j]
-        if entry is None:
-            continue
-        product, layer = entry[1], int(key[1])
-        if not 1 <= layer <= product.layers_per_side:
-            run.error(int(rows[starts[j]]), "layer", f"layer must be 1..{product.layers_per_side}"
-                      f" for product '{product.code}', got {layer}")
-        if counts[j] > settings.max_sites_per_measurement:
-            run.error(int(rows[starts[j]]), None, f"{counts[j]} sites in one measurement; at "
-                      f"most {settings.max_sites_per_measurement} are accepted")
-    half = np.array([(e[1].panel_width_mm / 2, e[1].panel_height_mm / 2) if e else (np.inf,) * 2
-                     for e in entries]).reshape(-1, 2)
-    half_rows = np.repeat(half, counts, axis=0)
-    x, y = df["x_mm"].to_numpy(), df["y_mm"].to_numpy()
-    for i in np.flatnonzero((np.abs(x) > half_rows[:, 0]) | (np.abs(y) > half_rows[:, 1]))[:20]:
-        run.error(int(rows[i]), "x_mm", f"site ({x[i]}, {y[i]}) mm lies outside the panel "
-                  "(coordinates are about the panel centre)")
-    group = np.repeat(np.arange(len(starts)), counts)
-    order = np.lexsort((y, x, group))
-    same = ((group[order][1:] == group[order][:-1]) & (x[order][1:] == x[order][:-1])
-            & (y[order][1:] == y[order][:-1]))
-    for i in np.sort(order[1:][same])[:20]:
-        run.error(int(rows[i]), "x_mm",
-                  f"site ({x[i]}, {y[i]}) mm appears more than once in the measurement")
-
-
-def _bounds(df: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
-    """First row and row count of each measurement (consecutive rows of one group)."""
-    group = df["group"].to_numpy()
-    starts = np.flatnonzero(np.r_[True, group[1:] != group[:-1]])
-    return starts, np.diff(np.r_[starts, len(df)])
-
-
-def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
-    """Fit and store the chunk's measurements (only called while the file has no error)."""
-    starts, counts = _bounds(df)
-    x, y = df["x_mm"].to_numpy(), df["y_mm"].to_numpy()
-    dx, dy = df["dx_um"].to_numpy(), df["dy_um"].to_numpy()
-    px, py, pdx, pdy = x.copy(), y.copy(), dx.copy(), dy.copy()
-    heads = df.iloc[starts]
-    products = [run.panels[s][1] for s in heads["panel"]]  # type: ignore[index]
-    # Side B posted in its tool frame goes to the panel frame: one mirror call per flip axis.
-    in_tool_b = ((heads["side"] == "B") & (heads["frame"] == "tool")).to_numpy()
-    flips = np.array([p.flip_axis for p in products])
-    for axis in ("x", "y"):
-        rows = np.repeat(in_tool_b & (flips == axis), counts)
-        if rows.any():
-            px[rows], py[rows], pdx[rows], pdy[rows] = mirror_sites(
-                x[rows], y[rows], dx[rows], dy[rows], side="B", flip_axis=axis)
-    trapezoid = np.array([p.model_terms == 8 for p in products])
-    fits: list[Any] = [None] * len(starts)
-    for flag in (False, True):
-        idx = np.flatnonzero(trapezoid == flag)
-        if not len(idx):
-            continue
-        sel = np.concatenate([np.arange(starts[i], starts[i] + counts[i]) for i in idx])
-        for i, f in zip(idx, fit_many(px[sel], py[sel], pdx[sel], pdy[sel], counts[idx],
-                                      trapezoid=flag), strict=True):
-            fits[i] = f
-    received = utcnow()
-    ids = [uuid.uuid4() for _ in starts]
-    superseded_by: list[uuid.UUID | None] = [None] * len(starts)
-    position = {}
-    updates: list[tuple[uuid.UUID, str, uuid.UUID]] = []
-    for j, head in enumerate(heads.itertuples()):
-        key = (head.panel, head.side, int(head.layer))
-        old = run.current.get(key)
-        if old is not None:
-            run.superseded += 1
-            if old in position:
-                superseded_by[position[old]] = ids[j]
-            else:
-                updates.append((ids[j], head.panel, old))
-        run.current[key] = ids[j]
-        position[ids[j]] = j
-        run.touched.add(head.panel)
-    bulk.insert(session, Measurement.__table__, [
-        (h.panel, ids[j], int(h.layer), h.side, h.frame, h.tool, h.stamp.to_pydatetime(),
-         received, int(counts[j]), superseded_by[j], "import", run.label)
-        for j, h in enumerate(heads.itertuples())
-    ])
-    if updates:
-        bulk.supersede(session, updates)
-    seq = np.arange(len(df)) - np.repeat(starts, counts)
-    # Site rows are streamed, not listed: a million tuples alive at once would cost memory and
-    # garbage-collector passes. Ids go as the 32 hex digits both databases take for a UUID.
-    site_ids = np.repeat(np.array([i.hex for i in ids], dtype=object), counts)
-    bulk.insert(session, Site.__table__, zip(
-        df["panel"].to_numpy(), site_ids, seq.tolist(), x.tolist(), y.tolist(),
-        dx.tolist(), dy.tolist(), px.tolist(), py.tolist(), pdx.tolist(), pdy.tolist(),
-        strict=True), stored_form=True)
-    fit_columns = [c.name for c in Fit.__table__.columns]
-    fit_rows = (fit_row(h.panel, ids[j], fits[j]) for j, h in enumerate(heads.itertuples()))
-    bulk.insert(session, Fit.__table__, [tuple(r[c] for c in fit_columns) for r in fit_rows])
-    run.measurements += len(starts)
-
-
-def _assign_groups(df: pd.DataFrame, run: _Run) -> pd.DataFrame:
-    change = np.zeros(len(df), dtype=bool)
-    change[0] = True
-    for column in KEY:
-        values = df[column].to_numpy()
+def _read_chunk(chunk: pd.DataFrame, reading: _Reading, first_row: int) -> None:
+    chunk = chunk.fillna("")
+    n = len(chunk)
+    line = first_row + 2  # data row 0 is file line 2
+    keys = [chunk[c].to_numpy() for c in reading.key_columns]
+    change = np.zeros(n, dtype=bool)
+    for values in keys:
         change[1:] |= values[1:] != values[:-1]
-    df["group"] = np.cumsum(change)
-    return df
+    first = tuple(str(v[0]) for v in keys)
+    change[0] = first != reading.last_key
+    reading.last_key = tuple(str(v[-1]) for v in keys)
+    owner = len(reading.heads) - 1 + np.cumsum(change)
+    for r in np.flatnonzero(change):
+        key = tuple(str(v[r]) for v in keys)
+        m = len(reading.heads)
+        reading.heads.append(key)
+        reading.head_rows.append(first_row + int(r))
+        if key in reading.seen:
+            reading.unreadable.add(m)
+            reading.error(line + int(r), "panel",
+                          f"rows of this measurement also stand at line {reading.seen[key]}, "
+                          "not next to these; keep a measurement's rows together")
+        else:
+            reading.seen[key] = line + int(r)
+    columns = []
+    for c in SITE_FIELDS:
+        values, not_number = _numbers(chunk[c])
+        for r in np.flatnonzero(not_number):
+            reading.unreadable.add(int(owner[r]))
+            reading.error(line + int(r), c, f"'{chunk[c].iat[r]}' is not a number")
+        columns.append(values)
+    reading.sites.append(np.column_stack(columns))
+    reading.rows += n
+
+
+def _batch(reading: _Reading) -> tuple[MeasurementBatch, np.ndarray]:
+    """The batch of every measurement read, and which ones could be read."""
+    m = len(reading.heads)
+    usable = np.ones(m, dtype=bool)
+    usable[sorted(reading.unreadable)] = False
+    column = {c: i for i, c in enumerate(reading.key_columns)}
+    layer = np.zeros(m, dtype=np.int64)
+    for j, key in enumerate(reading.heads):
+        text = key[column["layer"]].strip()
+        try:
+            layer[j] = int(text)
+        except ValueError:
+            usable[j] = False
+            reading.error(reading.head_rows[j] + 2, "layer",
+                          f"'{text}' is not a whole layer number")
+    head_rows = np.asarray(reading.head_rows, dtype=np.int64)
+    counts = np.diff(np.append(head_rows, reading.rows))
+    sites = np.concatenate(reading.sites) if reading.sites else np.zeros((0, 4))
+
+    def texts(name: str) -> list[str]:
+        return [k[column[name]] for k in reading.heads]
+
+    genealogy: dict[str, list[str | None]] = {
+        name: [v or None for v in texts(name)] for name in OPTIONAL if name in column}
+    batch = MeasurementBatch(
+        panel=texts("panel"), layer=layer, side=texts("side"), frame=texts("frame"),
+        tool=texts("tool"), measured_at=texts("measured_at"), counts=counts.astype(np.int64),
+        x=sites[:, 0].copy(), y=sites[:, 1].copy(), dx=sites[:, 2].copy(),
+        dy=sites[:, 3].copy(), locator=CsvLocator(first_line=head_rows + 2),
+        genealogy=genealogy)
+    return batch, usable
+
+
+def read(stream: IO[bytes], *, name: str, progress: Progress | None = None
+         ) -> tuple[MeasurementBatch, np.ndarray, list[FieldError]]:
+    """Read a CSV file into the batch form: (batch, readable measurements, reader's errors)."""
+    text = io.TextIOWrapper(stream, encoding="utf-8", errors="strict", newline="")
+    names = _header(text)
+    reading = _Reading(key_columns=[c for c in names if c not in SITE_FIELDS])
+    try:
+        for chunk in _chunks(text, names, get_settings().import_chunk_rows):
+            if not len(chunk):
+                continue
+            _read_chunk(chunk, reading, reading.rows)
+            if progress:
+                progress(len(chunk))
+    except UnicodeDecodeError as exc:
+        raise InvalidInput(f"'{name}' is not UTF-8 text (byte {exc.start} of a chunk)",
+                           [FieldError(message="not UTF-8")]) from exc
+    except pd.errors.ParserError as exc:
+        raise InvalidInput(f"'{name}' is not CSV as expected: {exc}") from exc
+    if reading.rows == 0:
+        raise InvalidInput(f"'{name}' holds a header and no rows",
+                           [FieldError(message="no rows", line=2)])
+    batch, usable = _batch(reading)
+    return batch, usable, reading.errors
 
 
 def import_csv(
-    *, db: Database, stream: IO[bytes], name: str, principal_label: str,
-    progress: Progress | None = None,
-) -> ImportRead:
-    """Import one CSV file; raises InvalidInput with every row error when any row is bad."""
-    settings = get_settings()
-    run = _Run(name=name, label=principal_label)
-    text = _text(stream)
-    names = _check_header(text)
-    with db.transaction() as session:
-        carry: pd.DataFrame | None = None
-        next_row = 1
-        for chunk in _chunks(text, names, settings.import_chunk_rows):
-            if not len(chunk):
-                continue
-            chunk = chunk[list(COLUMNS)]
-            _load_panels(session, run, chunk["panel"].unique().tolist())
-            chunk = _row_checks(chunk, run, next_row)
-            next_row += len(chunk)
-            df = chunk if carry is None else pd.concat([carry, chunk], ignore_index=True)
-            df = _assign_groups(df, run)
-            # The last measurement may go on in the next chunk: keep it back.
-            last = df["group"].iat[-1]
-            carry = df[df["group"] == last].drop(columns=["group"])
-            df = df[df["group"] != last]
-            _process(session, df, run)
-            if progress:
-                progress(len(chunk))
-        if carry is not None and len(carry):
-            _process(session, _assign_groups(carry.reset_index(drop=True), run), run)
-        if next_row == 1:
-            raise InvalidInput(f"'{name}' holds a header and no rows",
-                               [FieldError(message="no rows", row=1)])
-        if run.errors:
-            shown = f" (first {MAX_REPORTED} shown)" if len(run.errors) >= MAX_REPORTED else ""
-            raise InvalidInput(
-                f"'{name}' was not imported: {len(run.errors)} problem(s){shown}"
-                f"; first at row {run.errors[0].row}: {run.errors[0].message}",
-                run.errors,
-            )
-        _refresh_touched(session, run)
-        return ImportRead(
-            file=name, rows=run.rows, measurements=run.measurements, panels=len(run.touched),
-            superseded=run.superseded,
-        )
+    *, db: Database, stream: IO[bytes], name: str, principal_label: str, owner: int,
+    idempotency_key: str | None = None, progress: Progress | None = None,
+) -> tuple[bool, ImportRead]:
+    """Import one CSV file, all or nothing; returns (whether it is a repeat, answer).
+
+    Raises InvalidInput with every problem when anything is wrong.
+    """
+    data = stream.read()
+    digest = hashlib.sha256(data).hexdigest()
+    key = idempotency_key or f"file:{digest}"
+    if (done := idempotency.stored(db, key=key, owner=owner, digest=digest)) is not None:
+        return True, ImportRead.model_validate(done)
+    batch, usable, reader_errors = read(io.BytesIO(data), name=name, progress=progress)
+    del data
+
+    def describe(errors: list[FieldError]) -> str:
+        shown = f" (first {MAX_REPORTED} shown)" if len(errors) > MAX_REPORTED else ""
+        first = errors[0]
+        where = f" at line {first.line}" if first.line else ""
+        return (f"'{name}' was not imported: {len(errors)} problem(s){shown}; first{where}: "
+                f"{first.message}")
+
+    plan = intake.prepare(db, batch, describe=describe, reader_errors=reader_errors,
+                          usable=usable)
+
+    def claim(session: Session) -> tuple[bool, ImportRead] | None:
+        won = idempotency.claim(session, key=key, owner=owner, digest=digest)
+        return None if won is None else (True, ImportRead.model_validate(won))
+
+    def answer(session: Session, outcome: intake.Outcome) -> tuple[bool, ImportRead]:
+        read = ImportRead(file=name, rows=int(batch.counts.sum()), measurements=len(batch),
+                          panels=len(outcome.panels),
+                          superseded=sum(s is not None for s in outcome.superseded))
+        idempotency.finish(session, key=key, owner=owner, response=read.model_dump(mode="json"))
+        return False, read
+
+    result = intake.write(db, plan, source="import", key_label=principal_label, first=claim,
+                          answer=answer)
+    assert isinstance(result, tuple)
+    return result
 
 
 def import_path(
     *, db: Database, path: Path, label: str, progress: Progress | None = None
-) -> ImportRead:
+) -> tuple[bool, ImportRead]:
     """Import a CSV file from disk (CLI, demo); a refused file is kept with its reason."""
     try:
         with path.open("rb") as stream:
             return import_csv(db=db, stream=stream, name=path.name, principal_label=label,
-                              progress=progress)
+                              owner=idempotency.CLI_OWNER, progress=progress)
     except DomainError as exc:
         with path.open("rb") as stream:
             body = stream.read(rejections.MAX_KEPT_BYTES + 1)
-        rejections.record(db=db, endpoint=f"cli import {path.name}", key_label=label,
+        rejections.record(db=db, endpoint=f"cli import {path.name}"[:200], key_label=label,
                           status=exc.status, reason=exc.detail,
                           errors=[e.as_dict() for e in exc.errors], content_type="text/csv",
                           body=body, truncated=len(body) > rejections.MAX_KEPT_BYTES)
         raise
-
-
-def _process(session: Session, df: pd.DataFrame, run: _Run) -> None:
-    if not len(df):
-        return
-    run.rows += len(df)
-    _group_checks(df, run)
-    if not run.errors:
-        _write(session, df, run)
-
-
-def _refresh_touched(session: Session, run: _Run) -> None:
-    histories: dict[int, Any] = {}
-    serials = sorted(run.touched)
-    layers = state.current_layers_many(session, serials)
-    # Load the existing states in a few queries and keep them referenced (the identity map
-    # holds objects weakly), so that each refresh finds its state without a query and flush.
-    kept = [st for start in range(0, len(serials), 500) for st in session.scalars(
-        select(PanelState).where(PanelState.panel.in_(serials[start:start + 500])))]
-    with session.no_autoflush:
-        for serial in serials:
-            panel, product = run.panels[serial]  # type: ignore[misc]
-            if product.id not in histories:
-                histories[product.id] = learn(session, product=product)
-            st, assessment = state.refresh(session, panel=panel, product=product,
-                                           histories=histories[product.id],
-                                           layers=layers[serial])
-            holds.apply_automatic(session, panel=panel, state=st, assessment=assessment)
-    del kept
-

@@ -10,8 +10,9 @@ from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, InvalidInput, NotFound
-from app.overlay.model import PER_MM_TO_MICRO
+from app.overlay.model import report_units
 from app.schemas.panels import (
+    ForecastRead,
     FtbPoint,
     FtbRead,
     PanelCreate,
@@ -46,7 +47,7 @@ def _empty_state(panel: Panel) -> PanelState:
     return PanelState(
         panel=panel.serial, layers_a=[], layers_b=[], missing_a=[], missing_b=[],
         ftb_worst_um=0.0, ftb_worst_x_mm=0.0, ftb_worst_y_mm=0.0, ftb_points=[],
-        l2l_worst_um=0.0, stack={}, forecast=None, p_exceed=None, risk="clear",
+        l2l_worst_um=0.0, stack=None, forecast=None, p_exceed=None, risk="clear",
         risk_rule="clear", reasons=["No measurement yet."], updated_at=utcnow(),
     )
 
@@ -62,12 +63,12 @@ def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelState) -
         ftb=FtbRead(
             worst_um=st.ftb_worst_um,
             worst_at_mm=(st.ftb_worst_x_mm, st.ftb_worst_y_mm),
-            points=[FtbPoint(**p) for p in st.ftb_points],
+            points=[FtbPoint(**p.model_dump()) for p in st.ftb_points],
         ),
         l2l_worst_um=st.l2l_worst_um,
         risk=st.risk,  # type: ignore[arg-type]
         reasons=st.reasons,
-        forecast=st.forecast,  # type: ignore[arg-type]
+        forecast=ForecastRead.model_validate(st.forecast.model_dump()) if st.forecast else None,
         updated_at=st.updated_at,
     )
 
@@ -183,39 +184,41 @@ def stack(*, db: Database, serial: str) -> StackRead:
         panel = get_or_raise(session, serial)
         st = session.get(PanelState, serial)
         layers = state.current_layers(session, serial)
-        summary = st.stack if st is not None else {}
-        cumulative = summary.get("cumulative_worst_um", [])
+        summary = st.stack if st is not None else None
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
+            l2l = getattr(summary.l2l_worst_um, side) if summary else {}
             for k in sorted(layers[side]):
-                f = layers[side][k].row
+                f = layers[side][k]
+                report = report_units(f.terms)
                 out.append(StackLayerRead(
                     side=side,  # type: ignore[arg-type]
                     layer=k,
-                    measurement_id=str(f.id),
+                    measurement_id=str(f.measurement_id),
                     tool=f.tool,
                     measured_at=f.measured_at,
                     model=f.model,
                     note=f.note,
-                    tx_um=f.tx,
-                    ty_um=f.ty,
-                    sx_ppm=f.sx * PER_MM_TO_MICRO,
-                    sy_ppm=f.sy * PER_MM_TO_MICRO,
-                    rotation_urad=(f.ox + f.oy) / 2 * PER_MM_TO_MICRO,
-                    nonorthogonality_urad=(f.oy - f.ox) * PER_MM_TO_MICRO,
-                    kx_um_per_mm2=f.kx,
-                    ky_um_per_mm2=f.ky,
-                    sigma_x_um=f.sigma_x_um,
-                    sigma_y_um=f.sigma_y_um,
-                    l2l_worst_um=summary.get("l2l_worst_um", {}).get(side, {}).get(str(k), 0.0),
-                    cumulative_ftb_worst_um=_cumulative_at(cumulative, k),
+                    tx_um=report["tx_um"],
+                    ty_um=report["ty_um"],
+                    sx_ppm=report["sx_ppm"],
+                    sy_ppm=report["sy_ppm"],
+                    rotation_urad=report["rotation_urad"],
+                    nonorthogonality_urad=report["nonorthogonality_urad"],
+                    kx_um_per_mm2=report["kx_um_per_mm2"],
+                    ky_um_per_mm2=report["ky_um_per_mm2"],
+                    sigma_x_um=f.sigma_um[0],
+                    sigma_y_um=f.sigma_um[1],
+                    l2l_worst_um=l2l[k],
+                    cumulative_ftb_worst_um=_cumulative_at(summary.cumulative_worst_um, k)
+                    if summary else 0.0,
                 ))
         return StackRead(
             serial=panel.serial,
             layers=out,
-            residual_sigma_um=tuple(summary.get("residual_sigma_um", (0.0, 0.0))),  # type: ignore[arg-type]
-            linear_worst_case_um=summary.get("linear_worst_case_um", 0.0),
-            rss_um=summary.get("rss_um", 0.0),
+            residual_sigma_um=summary.residual_sigma_um if summary else (0.0, 0.0),
+            linear_worst_case_um=summary.linear_worst_case_um if summary else 0.0,
+            rss_um=summary.rss_um if summary else 0.0,
         )
 
 

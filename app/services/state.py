@@ -1,17 +1,21 @@
-"""The running estimate of one panel: rebuilt from its current fits (never from raw sites) in
-the same transaction as every accepted measurement.
+"""The running estimate of one panel: computed from its fits in force (never from raw sites)
+and stored with every accepted measurement.
 
-Order of work: current fits -> stack accumulation at the product's check points (core) ->
-forecast of the final FTB (core, with the product's history) -> risk (core) -> stored state.
+Order of work: fits in force -> stack accumulation at the product's check points (core) ->
+forecast of the final FTB (core, with the product's history) -> risk (core) -> ``Estimate``.
+``compute`` needs no session, so the pipeline (``app.services.intake``) runs it before it takes
+the write lock; ``store`` writes the result.
 """
 
 from __future__ import annotations
 
+import uuid
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any
 
 import numpy as np
-from sqlalchemy import Row, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
@@ -19,9 +23,9 @@ from app.overlay.forecast import Forecast, LayerHistory, forecast_final
 from app.overlay.resistance import RHO_COPPER_20C, resistance_ohm
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
-from app.services.history import product_history
 from app.services.products import check_points
-from app.store.tables import Fit, Measurement, Panel, PanelState, Product, utcnow
+from app.store.stored import RemainingLayers, SidesLayers, StoredForecast, StoredPoint, StoredStack
+from app.store.tables import Fit, Measurement, PanelState, Product, utcnow
 
 #: What a state rebuild and the stack view read of each measurement in force: plain columns,
 #: not ORM objects (for an import's hundreds of panels that is a tenth of the cost).
@@ -36,16 +40,17 @@ _LAYER_COLUMNS = (
 class CurrentLayer:
     """The measurement in force for one side and layer, with its fit (panel frame)."""
 
-    row: Row[Any]
-
-    @property
-    def terms(self) -> np.ndarray:
-        r = self.row
-        return np.array([r.tx, r.ty, r.sx, r.sy, r.ox, r.oy, r.kx, r.ky], dtype=np.float64)
+    measurement_id: uuid.UUID
+    tool: str
+    measured_at: datetime
+    model: str
+    note: str | None
+    terms: np.ndarray  # (8,) Tx, Ty, Sx, Sy, Ox, Oy, Kx, Ky in um and um/mm
+    sigma_um: tuple[float, float]
 
     @property
     def residual_var(self) -> tuple[float, float]:
-        return (self.row.sigma_x_um**2, self.row.sigma_y_um**2)
+        return (self.sigma_um[0] ** 2, self.sigma_um[1] ** 2)
 
 
 Layers = dict[str, dict[int, CurrentLayer]]
@@ -61,8 +66,12 @@ def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layer
             .where(Measurement.panel.in_(serials[start:start + 500]),
                    Measurement.superseded_by.is_(None))
         ).all()
-        for row in rows:
-            out[row.panel][row.side][row.layer] = CurrentLayer(row)
+        for r in rows:
+            out[r.panel][r.side][r.layer] = CurrentLayer(
+                measurement_id=r.id, tool=r.tool, measured_at=r.measured_at, model=r.model,
+                note=r.note,
+                terms=np.array([r.tx, r.ty, r.sx, r.sy, r.ox, r.oy, r.kx, r.ky], dtype=np.float64),
+                sigma_um=(r.sigma_x_um, r.sigma_y_um))
     return out
 
 
@@ -123,31 +132,35 @@ def _seed(serial: str) -> int:
     return int.from_bytes(serial.encode("utf-8")[-8:].rjust(8, b"\0"), "big") % (2**32)
 
 
-def _stack_summary(l2l: dict[str, dict[int, float]], stack: StackResult) -> dict[str, Any]:
-    """What the stack view shows; ``cumulative_worst_um[k-1]`` is FTB over layers 1..k."""
-    return {
-        "l2l_worst_um": {side: {str(k): v for k, v in l2l[side].items()} for side in ("A", "B")},
-        "cumulative_worst_um": [float(v) for v in stack.cumulative_worst_um],
-        "residual_sigma_um": list(stack.residual_sigma_um),
-        "linear_worst_case_um": stack.linear_worst_case_um,
-        "rss_um": stack.rss_um,
-    }
+def _stack_summary(l2l: dict[str, dict[int, float]], stack: StackResult,
+                   resistance: float | None) -> StoredStack:
+    return StoredStack(
+        l2l_worst_um=SidesLayers(A=l2l["A"], B=l2l["B"]),
+        cumulative_worst_um=[float(v) for v in stack.cumulative_worst_um],
+        residual_sigma_um=(float(stack.residual_sigma_um[0]), float(stack.residual_sigma_um[1])),
+        linear_worst_case_um=float(stack.linear_worst_case_um),
+        rss_um=float(stack.rss_um),
+        resistance_ohm=resistance,
+    )
 
 
-def refresh(
-    session: Session,
+@dataclass(frozen=True)
+class Estimate:
+    """A panel's running estimate, as stored in ``panel_states``, with its risk assessment."""
+
+    values: dict[str, Any]
+    assessment: RiskAssessment
+    all_layers_on: bool
+
+
+def compute(
     *,
-    panel: Panel,
+    serial: str,
     product: Product,
-    histories: tuple[LayerHistory, LayerHistory] | None = None,
-    layers: Layers | None = None,
-) -> tuple[PanelState, RiskAssessment]:
-    """Recompute and store the panel's state; returns it with the risk assessment.
-
-    ``histories`` and ``layers`` may be given by a caller that loaded them for many panels.
-    """
-    if layers is None:
-        layers = current_layers(session, panel.serial)
+    layers: Layers,
+    histories: tuple[LayerHistory, LayerHistory],
+) -> Estimate:
+    """The estimate of a panel whose fits in force are ``layers`` (no database access)."""
     order = {s: sorted(layers[s]) for s in ("A", "B")}
 
     def stacked(side: str) -> tuple[np.ndarray, np.ndarray]:
@@ -166,9 +179,7 @@ def refresh(
     stack = accumulate(
         terms_a, terms_b, points, residual_var_a=var_a, residual_var_b=var_b
     )
-    if histories is None:
-        histories = product_history(session, product=product)
-    forecast = _forecast(product, layers, stack, histories, _seed(panel.serial))
+    forecast = _forecast(product, layers, stack, histories, _seed(serial))
     l2l = {
         "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
         "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
@@ -190,13 +201,8 @@ def refresh(
         resistance_ohm=resistance,
     )
     points_out = [
-        {
-            "x_mm": float(p[0]),
-            "y_mm": float(p[1]),
-            "dx_um": float(v[0]),
-            "dy_um": float(v[1]),
-            "length_um": float(n),
-        }
+        StoredPoint(x_mm=float(p[0]), y_mm=float(p[1]), dx_um=float(v[0]), dy_um=float(v[1]),
+                    length_um=float(n))
         for p, v, n in zip(points, stack.ftb_um, stack.ftb_length_um, strict=True)
     ]
     values: dict[str, Any] = {
@@ -209,31 +215,34 @@ def refresh(
         "ftb_worst_y_mm": float(stack.worst_at_mm[1]),
         "ftb_points": points_out,
         "l2l_worst_um": float(max([*l2l["A"].values(), *l2l["B"].values()], default=0.0)),
-        "stack": {**_stack_summary(l2l, stack), "resistance_ohm": resistance},
-        "forecast": {
-            "final_worst_um": forecast.final_worst_um,
-            "band_um": list(forecast.band_um),
-            "p_exceed": forecast.p_exceed,
-            "remaining": {
-                "A": list(forecast.trend_a.remaining_layers),
-                "B": list(forecast.trend_b.remaining_layers),
-            },
-            "method": forecast.method,
-        },
+        "stack": _stack_summary(l2l, stack, resistance),
+        "forecast": StoredForecast(
+            final_worst_um=forecast.final_worst_um,
+            band_um=(float(forecast.band_um[0]), float(forecast.band_um[1])),
+            p_exceed=forecast.p_exceed,
+            remaining=RemainingLayers(A=list(forecast.trend_a.remaining_layers),
+                                      B=list(forecast.trend_b.remaining_layers)),
+            method=forecast.method,
+        ),
         "p_exceed": forecast.p_exceed,
         "risk": assessment.level,
         "risk_rule": assessment.rule,
         "reasons": list(assessment.reasons),
-        "updated_at": utcnow(),
     }
-    state = session.get(PanelState, panel.serial)
+    full = product.layers_per_side
+    return Estimate(values=values, assessment=assessment,
+                    all_layers_on=len(order["A"]) == full and len(order["B"]) == full)
+
+
+def store(session: Session, *, serial: str, estimate: Estimate,
+          existing: PanelState | None = None) -> PanelState:
+    """Write the estimate into the panel's state row (created at registration)."""
+    state = existing if existing is not None else session.get(PanelState, serial)
+    values = {**estimate.values, "updated_at": utcnow()}
     if state is None:
-        state = PanelState(panel=panel.serial, **values)
+        state = PanelState(panel=serial, **values)
         session.add(state)
     else:
         for k, v in values.items():
             setattr(state, k, v)
-    full = product.layers_per_side
-    if panel.status == "in_process" and len(order["A"]) == full and len(order["B"]) == full:
-        panel.status = "complete"
-    return state, assessment
+    return state

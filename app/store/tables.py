@@ -6,8 +6,9 @@ so that the store can be distributed by panel on a distributed PostgreSQL, which
 keys to contain the distribution column. Ids of panel-owned rows are UUIDs made by the
 application, so no sequence is shared across shards.
 
-All coordinates and displacements stored here are in the panel frame except the ``*_posted``
-columns of ``sites``, which keep what the tool sent.
+All coordinates and displacements stored here are in the panel frame except the ``posted``
+site pack of ``measurement_sites``, which keeps what the tool sent. The running estimate's JSON
+columns are typed and versioned (``app.store.stored``).
 """
 
 from __future__ import annotations
@@ -33,6 +34,14 @@ from sqlalchemy import (
 )
 from sqlalchemy.engine import Dialect
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+from app.store.stored import (
+    StoredForecast,
+    StoredPoints,
+    StoredStack,
+    Typed,
+    points_adapter,
+)
 
 NAMING = {
     "ix": "ix_%(table_name)s_%(column_0_N_name)s",
@@ -95,6 +104,9 @@ class Product(Base):
     p_watch: Mapped[float]
     p_at_risk: Mapped[float]
     connection: Mapped[dict[str, Any] | None]
+    # Bumped whenever the product's learned history may change (a panel completes its stack,
+    # or a measurement of a completed panel is replaced): forecasts cache history by it.
+    history_revision: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
 
@@ -114,6 +126,11 @@ class Panel(Base):
     product_id: Mapped[int] = mapped_column(ForeignKey("products.id"), index=True)
     lot_id: Mapped[int] = mapped_column(ForeignKey("lots.id"), index=True)
     status: Mapped[str] = mapped_column(String(16), default="in_process")
+    # Bumped by every write that changes the panel's measurements; a write prepared outside
+    # the lock checks it to know whether what it computed is still current.
+    revision: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
+    # When every layer of both sides first had a measurement in force.
+    completed_at: Mapped[datetime | None] = mapped_column(Stamp)
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
 
@@ -133,32 +150,31 @@ class Measurement(Base):
     superseded_by: Mapped[uuid.UUID | None] = mapped_column(Uuid)
     source: Mapped[str] = mapped_column(String(16), default="api")  # "api" or "import"
     key_label: Mapped[str] = mapped_column(String(100), default="")
+    # Genealogy a fab may post with each measurement (all optional).
+    metrology_tool: Mapped[str | None] = mapped_column(String(64))
+    recipe: Mapped[str | None] = mapped_column(String(64))
+    artwork: Mapped[str | None] = mapped_column(String(64))
+    shift: Mapped[str | None] = mapped_column(String(64))
 
 
-class Site(Base):
-    """One measured site: as posted, and in the panel frame.
+class SiteSet(Base):
+    """The sites of one measurement, packed: one row per measurement, not one per site.
 
-    The hottest table by far (a million rows per import of a few hundred panels). It has no
-    foreign key to ``measurements``: sites are only ever written by the service that writes
-    their measurement, in the same transaction, and on PostgreSQL a row-by-row key check made
-    two thirds of the cost of a bulk import. On SQLite it is a WITHOUT ROWID table, so the
-    primary key is the table itself and every row is written once, not also into an index.
+    ``posted`` keeps what the tool sent, ``panel_frame`` the same sites in the panel frame;
+    each is an (n, 4) array of float64 (x_mm, y_mm, dx_um, dy_um), little-endian, row-major
+    (``app.store.sitepack``). A measurement's sites are only ever read together (fits, vector
+    maps, residuals), and one row instead of 49 makes an import's writes a small share of its
+    time. No foreign key: the row is written by the service that writes its measurement, in the
+    same transaction.
     """
 
-    __tablename__ = "sites"
-    __table_args__: ClassVar[dict[str, Any]] = {"sqlite_with_rowid": False}
+    __tablename__ = "measurement_sites"
 
     panel: Mapped[str] = mapped_column(String(64), primary_key=True)
     measurement_id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True)
-    seq: Mapped[int] = mapped_column(Integer, primary_key=True)
-    x_mm_posted: Mapped[float]
-    y_mm_posted: Mapped[float]
-    dx_um_posted: Mapped[float]
-    dy_um_posted: Mapped[float]
-    x_mm: Mapped[float]
-    y_mm: Mapped[float]
-    dx_um: Mapped[float]
-    dy_um: Mapped[float]
+    n_sites: Mapped[int]
+    posted: Mapped[bytes] = mapped_column(LargeBinary)
+    panel_frame: Mapped[bytes] = mapped_column(LargeBinary)
 
 
 class Fit(Base):
@@ -207,10 +223,10 @@ class PanelState(Base):
     ftb_worst_um: Mapped[float] = mapped_column(Float, index=True)
     ftb_worst_x_mm: Mapped[float]
     ftb_worst_y_mm: Mapped[float]
-    ftb_points: Mapped[list[Any]]
+    ftb_points: Mapped[StoredPoints] = mapped_column(Typed(points_adapter))
     l2l_worst_um: Mapped[float]
-    stack: Mapped[dict[str, Any]]
-    forecast: Mapped[dict[str, Any] | None]
+    stack: Mapped[StoredStack | None] = mapped_column(Typed(StoredStack))
+    forecast: Mapped[StoredForecast | None] = mapped_column(Typed(StoredForecast))
     p_exceed: Mapped[float | None] = mapped_column(Float, index=True)
     risk: Mapped[str] = mapped_column(String(16), index=True)
     risk_rule: Mapped[str] = mapped_column(String(40))

@@ -120,7 +120,7 @@ def test_disposition_roles_notes_and_audit(setup):
     assert panel["status"] == "scrapped"
     refused = c.post("/api/v1/measurements", json=measurement("DRIFT", 5, "A"),
                      headers=k.headers("tool"))
-    assert refused.status_code == 409 and "scrapped" in refused.json()["detail"]
+    assert refused.status_code == 422 and "scrapped" in refused.json()["detail"]
     entries = audit.list_for(db=db, subject="DRIFT")
     actions = [e["action"] for e in entries]
     assert actions == ["panel_register", "hold", "disposition_scrap"]

@@ -9,7 +9,7 @@ import pytest
 from sqlalchemy import func, select
 
 from app.services import rejections
-from app.store.tables import Measurement, Site
+from app.store.tables import Measurement, SiteSet
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
 HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
@@ -81,7 +81,7 @@ BAD_ROWS = {
     "non-finite": ("P0001,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,nan,1\n", "dx_um",
                    "finite"),
     "text in a number": ("P0001,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,abc,1,1\n", "y_mm",
-                         "finite"),
+                         "'abc' is not a number"),
     "side C": ("P0001,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "side", "side"),
     "layer 0": ("P0001,0,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "layer", "1..12"),
     "layer 13": ("P0001,13,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "layer", "1..12"),
@@ -99,14 +99,14 @@ def test_one_bad_row_refuses_the_whole_file(setup, case):
     db, c, k = setup
     line, column, needle = BAD_ROWS[case]
     good = _csv(measurement("P0002", 1, "A", (1.0,)))
-    text = good + line  # data row 26
-    before = (_count(db, Measurement), _count(db, Site))
+    text = good + line  # file line 27 (the header is line 1)
+    before = (_count(db, Measurement), _count(db, SiteSet))
     r = _post(c, k, text)
     assert r.status_code == 422, r.text
     errors = r.json()["errors"]
-    assert errors[0]["row"] == 26 and errors[0]["column"] == column
+    assert errors[0]["line"] == 27 and errors[0]["column"] == column
     assert needle in errors[0]["message"]
-    assert (_count(db, Measurement), _count(db, Site)) == before
+    assert (_count(db, Measurement), _count(db, SiteSet)) == before
     kept = rejections.latest(db=db)
     assert kept.endpoint == "/api/v1/imports" and kept.status == 422
     assert text.encode() in kept.body  # the multipart body holds the file whole
@@ -119,7 +119,7 @@ def test_duplicate_sites_and_split_measurements_are_reported(setup):
     r = _post(c, k, text)
     assert r.status_code == 422
     messages = " ".join(e["message"] for e in r.json()["errors"])
-    assert "appear earlier in the file" in messages
+    assert "not next to these" in messages
 
 
 def test_wrong_header_and_non_utf8_and_empty(setup):

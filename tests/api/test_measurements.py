@@ -9,7 +9,8 @@ from sqlalchemy import func, select
 from app.overlay.fit import fit_measurement
 from app.overlay.frames import mirror_sites
 from app.overlay.stack import accumulate, default_check_points
-from app.store.tables import Measurement, Site
+from app.store import sitepack
+from app.store.tables import Measurement, SiteSet
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
 
@@ -36,7 +37,13 @@ def test_post_returns_fit_and_state(setup):
     assert body["state"]["layers"] == {"A": [1], "B": []}
     assert body["state"]["ftb"]["worst_um"] == pytest.approx(np.hypot(2.0, 1.0), abs=1e-9)
     assert body["superseded"] is None
-    assert _count(db, Site) == 25
+    with db.reading() as s:
+        pack = s.scalars(select(SiteSet)).one()
+    assert pack.n_sites == 25
+    posted = sitepack.unpack(pack.posted)
+    sent = measurement("P0001", 1, "A", (2.0, -1.0))["sites"]
+    np.testing.assert_array_equal(posted, [[p["x_mm"], p["y_mm"], p["dx_um"], p["dy_um"]]
+                                           for p in sent])
 
 
 def test_ftb_in_api_equals_core_computation(setup):

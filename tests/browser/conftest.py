@@ -22,7 +22,7 @@ import uvicorn
 from app.config import get_settings
 from app.db import Database
 from app.main import create_app
-from app.services import history, keys
+from app.services import keys
 from app.store.migrate import upgrade
 from tests.factories import make_panel, make_product
 
@@ -53,7 +53,6 @@ def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer
     """The app under uvicorn on 127.0.0.1, on a migrated SQLite file with a product, a panel
     and an engineer key registered through the services."""
     get_settings.cache_clear()
-    history.forget()
     path = tmp_path_factory.mktemp("browser") / "store.db"
     db = Database(f"sqlite:///{path}")
     upgrade(db.engine)
@@ -85,8 +84,7 @@ def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer
         server.should_exit = True
         thread.join(timeout=10)
         sock.close()
-        db.dispose()
-        history.forget()
+        db.close()
         assert not thread.is_alive(), "uvicorn did not shut down within 10 s"
 
 

@@ -8,7 +8,7 @@ from sqlalchemy import inspect
 
 from app.store.tables import Base
 
-PANEL_OWNED = ("measurements", "sites", "fits", "panel_states", "holds")
+PANEL_OWNED = ("measurements", "measurement_sites", "fits", "panel_states", "holds")
 
 
 def test_migrations_match_the_tables(db):

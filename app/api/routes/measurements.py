@@ -36,11 +36,24 @@ def post_measurement(
     return answer
 
 
-@router.post("/imports", response_model=ImportRead, status_code=201)
+@router.post(
+    "/imports", response_model=ImportRead, status_code=201,
+    responses={200: {"model": ImportRead, "description": "Repeat of a file already imported "
+                     "(same content, or same Idempotency-Key and content)"}},
+)
 def post_import(
-    db: DbDep, who: PostMeasurement, file: Annotated[UploadFile, File()]
+    db: DbDep,
+    who: PostMeasurement,
+    response: Response,
+    file: Annotated[UploadFile, File()],
+    idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
 ) -> ImportRead:
-    """Import a CSV file of site rows, all or nothing; errors give row, column and message."""
-    return imports.import_csv(
-        db=db, stream=file.file, name=file.filename or "upload.csv", principal_label=who.label
+    """Import a CSV file of site rows, all or nothing; errors give file line, column and
+    message. The same content sent again by the same key is answered as a repeat (200)."""
+    repeat, answer = imports.import_csv(
+        db=db, stream=file.file, name=(file.filename or "upload.csv")[:200],
+        principal_label=who.label, owner=who.key_id, idempotency_key=idempotency_key,
     )
+    if repeat:
+        response.status_code = 200
+    return answer

@@ -1,0 +1,21 @@
+"""Insert a row unless its key is taken, on both databases, without an error either way.
+
+``INSERT ... ON CONFLICT DO NOTHING``: under concurrency, PostgreSQL makes a second insert of
+the same key wait for the first transaction and then do nothing, so the caller can read the
+winner's row instead of failing on a duplicate key (a 500). SQLite serialises writers anyway.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.orm import Session
+
+
+def insert_ignore(session: Session, model: Any, values: dict[str, Any]) -> bool:
+    """Insert ``values`` into ``model``'s table; True when this call inserted the row."""
+    dialect = session.get_bind().dialect.name
+    insert = postgresql.insert if dialect == "postgresql" else sqlite.insert
+    result = session.execute(insert(model).values(**values).on_conflict_do_nothing())
+    return bool(result.rowcount)  # type: ignore[attr-defined]
