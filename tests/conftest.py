@@ -20,7 +20,6 @@ from sqlalchemy.engine import make_url
 
 from app.config import get_settings
 from app.db import Database
-
 from app.store.migrate import upgrade
 from app.store.tables import Base
 

@@ -24,8 +24,10 @@ from app.schemas.panels import (
 )
 from app.services import audit, state
 from app.services import cursor as cursors
+from app.services.lifecycle import PanelStatus
 from app.services.products import get_by_code_or_raise
 from app.store.tables import Lot, Panel, PanelState, Product, utcnow
+from app.store.upsert import insert_ignore
 
 SORTS = {
     "serial": (Panel.serial,),
@@ -81,30 +83,35 @@ def to_read(session: Session, panel: Panel) -> PanelRead:
 
 
 def create(*, db: Database, data: PanelCreate, actor: str) -> tuple[bool, PanelRead]:
-    """Register a panel; returns (created, panel). An identical repeat is not an error."""
+    """Register a panel; returns (created, panel). An identical repeat is not an error.
+
+    Lot and panel are inserted with "do nothing on conflict" and then read, so identical
+    registrations sent at the same moment all succeed (one 201, the others 200) instead of
+    failing on a duplicate key.
+    """
     with db.transaction() as session:
         product = get_by_code_or_raise(session, data.product)
-        lot = session.scalars(select(Lot).where(Lot.code == data.lot)).one_or_none()
-        if lot is not None and lot.product_id != product.id:
+        insert_ignore(session, Lot, {"code": data.lot, "product_id": product.id,
+                                     "created_at": utcnow()})
+        lot = session.scalars(select(Lot).where(Lot.code == data.lot)).one()
+        if lot.product_id != product.id:
             raise Conflict(f"lot '{data.lot}' belongs to another product")
-        existing = session.get(Panel, data.serial)
-        if existing is not None:
-            if existing.product_id != product.id or lot is None or existing.lot_id != lot.id:
+        created = insert_ignore(session, Panel, {
+            "serial": data.serial, "product_id": product.id, "lot_id": lot.id,
+            "status": PanelStatus.IN_PROCESS, "revision": 0, "created_at": utcnow()})
+        panel = session.scalars(select(Panel).where(Panel.serial == data.serial)
+                                .execution_options(populate_existing=True)).one()
+        if not created:
+            if panel.product_id != product.id or panel.lot_id != lot.id:
                 raise Conflict(
                     f"panel '{data.serial}' is already registered to another product or lot"
                 )
-            return False, to_read(session, existing)
-        if lot is None:
-            lot = Lot(code=data.lot, product_id=product.id)
-            session.add(lot)
-            session.flush()
-        panel = Panel(serial=data.serial, product_id=product.id, lot_id=lot.id)
-        session.add(panel)
-        session.flush()
+            return False, to_read(session, panel)
         # Every panel has a state from the start, so lists, filters and sorts see it as clear.
         session.add(_empty_state(panel))
         audit.record(session, actor=actor, action="panel_register", subject=data.serial,
                      details={"product": data.product, "lot": data.lot})
+        session.flush()
         return True, to_read(session, panel)
 
 

@@ -11,7 +11,8 @@ from app.errors import Conflict, NotFound
 from app.overlay.stack import default_check_points
 from app.schemas.products import Connection, ProductCreate, ProductRead
 from app.services import audit
-from app.store.tables import Product
+from app.store.tables import Product, utcnow
+from app.store.upsert import insert_ignore
 
 
 def to_read(product: Product) -> ProductRead:
@@ -51,23 +52,25 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> tuple[bool, Prod
     if points is None:
         grid = default_check_points(data.panel_width_mm, data.panel_height_mm)
         points = [(round(float(x), 6), round(float(y), 6)) for x, y in grid]
+    fields = data.model_dump(exclude={"check_points_mm", "connection"})
+    connection = data.connection.model_dump() if data.connection else None
+    stored_points = [list(p) for p in points]
     with db.transaction() as session:
-        existing = session.scalars(select(Product).where(Product.code == data.code)).one_or_none()
-        fields = data.model_dump(exclude={"check_points_mm", "connection"})
-        connection = data.connection.model_dump() if data.connection else None
-        if existing is not None:
-            same = all(getattr(existing, k) == v for k, v in fields.items()) and (
-                existing.connection == connection
-                and [tuple(p) for p in existing.check_points_mm] == [tuple(p) for p in points]
+        # Insert-or-nothing, then read: identical products posted at the same moment all get
+        # an answer (one 201, the rest 200) instead of a duplicate-key failure.
+        created = insert_ignore(session, Product, {
+            **fields, "check_points_mm": stored_points, "connection": connection,
+            "history_revision": 0, "created_at": utcnow()})
+        product = session.scalars(select(Product).where(Product.code == data.code)
+                                  .execution_options(populate_existing=True)).one()
+        if not created:
+            same = all(getattr(product, k) == v for k, v in fields.items()) and (
+                product.connection == connection
+                and [tuple(p) for p in product.check_points_mm] == [tuple(p) for p in points]
             )
             if not same:
                 raise Conflict(f"product '{data.code}' exists with different settings")
-            return False, to_read(existing)
-        product = Product(
-            **fields, check_points_mm=[list(p) for p in points], connection=connection
-        )
-        session.add(product)
-        session.flush()
+            return False, to_read(product)
         audit.record(session, actor=actor, action="product_create", subject=data.code,
                      details=fields)
         return True, to_read(product)

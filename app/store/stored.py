@@ -74,7 +74,7 @@ class StoredForecast(_Stored):
 class Typed(TypeDecorator[Any]):
     """A JSON column holding a pydantic model (or anything a TypeAdapter handles)."""
 
-    impl = JSON
+    impl = JSON(none_as_null=True)
     cache_ok = True
 
     def __init__(self, shape: type[BaseModel] | TypeAdapter[Any]) -> None:

@@ -17,5 +17,7 @@ def insert_ignore(session: Session, model: Any, values: dict[str, Any]) -> bool:
     """Insert ``values`` into ``model``'s table; True when this call inserted the row."""
     dialect = session.get_bind().dialect.name
     insert = postgresql.insert if dialect == "postgresql" else sqlite.insert
-    result = session.execute(insert(model).values(**values).on_conflict_do_nothing())
-    return bool(result.rowcount)  # type: ignore[attr-defined]
+    key = model.__table__.primary_key.columns.values()
+    # RETURNING says whether a row went in on both drivers (a rowcount can be -1 with it).
+    statement = insert(model).values(**values).on_conflict_do_nothing().returning(*key)
+    return session.execute(statement).first() is not None

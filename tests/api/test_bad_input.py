@@ -6,7 +6,6 @@ its reason. A few cases exist in one form only (a body that is not JSON; a CSV h
 
 from __future__ import annotations
 
-import copy
 import io
 import json
 from collections.abc import Callable
