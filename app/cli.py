@@ -96,11 +96,16 @@ def import_command(file: Path) -> None:
 
 
 @cli.command("serve")
-def serve(host: str = "127.0.0.1", port: int = 8000) -> None:
+def serve(
+    host: str = "127.0.0.1",
+    port: int = 8000,
+    workers: Annotated[int, typer.Option(min=1, max=64, help="Server processes; on PostgreSQL "
+                                         "about one per core serves concurrent posts best")] = 1,
+) -> None:
     """Serve the API (docs at /docs)."""
     import uvicorn
 
-    uvicorn.run("app.main:app", host=host, port=port)
+    uvicorn.run("app.main:app", host=host, port=port, workers=workers, log_level="warning")
 
 
 @cli.command("panel")
@@ -165,7 +170,7 @@ def demo(
         uvicorn.run("app.main:app", host=host, port=port)
 
 
-SAMPLE_MEASUREMENTS = Path(__file__).resolve().parents[1] / "sample_data" / "measurements.csv"
+SAMPLE_MEASUREMENTS = Path(__file__).resolve().parent / "demo" / "sample_data" / "measurements.csv"
 
 
 def main() -> None:

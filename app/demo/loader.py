@@ -19,7 +19,7 @@ from app.services import holds, imports, keys, panels, products
 from app.store.migrate import upgrade
 from app.store.tables import Product
 
-SAMPLE_DATA = Path(__file__).resolve().parents[2] / "sample_data"
+SAMPLE_DATA = Path(__file__).resolve().parent / "sample_data"
 DEMO_ROLES = ("tool", "engineer", "supervisor", "admin")
 
 

@@ -529,8 +529,8 @@ def generate(out_dir: Path, *, seed: int = 2026) -> ScenarioSummary:
 
 
 def main() -> None:
-    """Regenerate the committed ``sample_data/`` at the repository root."""
-    out_dir = Path(__file__).resolve().parents[2] / "sample_data"
+    """Regenerate the committed ``app/demo/sample_data/`` (shipped in the wheel)."""
+    out_dir = Path(__file__).resolve().parent / "sample_data"
     summary = generate(out_dir)
     print(f"{out_dir}: {summary.panels} panels, {summary.rows} rows")
 

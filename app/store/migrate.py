@@ -1,4 +1,4 @@
-"""Run the Alembic migrations in ``migrations/`` against a database URL."""
+"""Run the Alembic migrations in ``app/store/migrations/`` (shipped in the wheel) against a database URL."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from alembic import command
 from alembic.config import Config
 from sqlalchemy import Engine
 
-MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
+MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
 
 
 def alembic_config(url: str | None = None) -> Config:

@@ -15,7 +15,7 @@ from app.demo.simulator import ScenarioSummary, generate
 from app.overlay.frames import mirror_sites
 
 FILES = ("products.json", "panels.csv", "measurements.csv", "README.md")
-COMMITTED = Path(__file__).resolve().parents[2] / "sample_data"
+COMMITTED = Path(__file__).resolve().parents[2] / "app" / "demo" / "sample_data"
 Rows = list[dict[str, str]]
 
 
@@ -71,7 +71,7 @@ def test_committed_sample_data_is_fresh(scenario: tuple[Path, ScenarioSummary]) 
         committed = COMMITTED / name
         assert committed.is_file(), f"{committed} missing: run python -m app.demo.simulator"
         assert committed.read_bytes() == (scenario[0] / name).read_bytes(), (
-            f"sample_data/{name} is stale: run python -m app.demo.simulator"
+            f"app/demo/sample_data/{name} is stale: run python -m app.demo.simulator"
         )
 
 
