@@ -1,4 +1,4 @@
-"""Run the Alembic migrations in ``app/store/migrations/`` (shipped in the wheel) against a database URL."""
+"""Run the Alembic migrations in ``app/store/migrations/`` (shipped in the wheel)."""
 
 from __future__ import annotations
 
