@@ -79,5 +79,8 @@ class MeasurementBatch:
         """For each site row, the index of its measurement."""
         return np.repeat(np.arange(len(self.counts), dtype=np.int64), self.counts)
 
-    def genealogy_of(self, i: int) -> dict[str, str | None]:
-        return {name: (self.genealogy.get(name) or [None] * len(self))[i] for name in GENEALOGY}
+    def genealogy_rows(self) -> list[dict[str, str | None]]:
+        """Per measurement, every genealogy field (None where not posted)."""
+        columns = [(name, self.genealogy.get(name)) for name in GENEALOGY]
+        return [{name: values[i] if values else None for name, values in columns}
+                for i in range(len(self))]

@@ -16,11 +16,10 @@ from __future__ import annotations
 import re
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Final
 
 import numpy as np
-import pandas as pd
 
 from app.config import get_settings
 from app.errors import FieldError
@@ -56,12 +55,23 @@ Check = Callable[[MeasurementBatch, list["PanelFacts | None"], np.ndarray], Iter
 def parse_times(texts: list[str]) -> list[datetime | None]:
     """ISO 8601 times with a time zone, as aware UTC datetimes; None where a text is not one.
     Each distinct text is parsed once (a measurement's rows share one)."""
-    codes, uniques = pd.factorize(pd.Series(texts, dtype=object))
-    parsed = pd.to_datetime(pd.Series(uniques), errors="coerce", utc=True, format="ISO8601")
-    ok = [isinstance(u, str) and bool(_ZONED.search(u.strip())) and not pd.isna(p)
-          for u, p in zip(uniques, parsed, strict=True)]
-    stamps = [p.to_pydatetime() if good else None for p, good in zip(parsed, ok, strict=True)]
-    return [stamps[c] for c in codes]
+    seen: dict[str, datetime | None] = {}
+    out: list[datetime | None] = []
+    for text in texts:
+        if text not in seen:
+            seen[text] = _time(text)
+        out.append(seen[text])
+    return out
+
+
+def _time(text: object) -> datetime | None:
+    if not isinstance(text, str) or not _ZONED.search(text.strip()):
+        return None
+    try:
+        stamp = datetime.fromisoformat(text.strip())
+    except ValueError:
+        return None
+    return stamp.astimezone(UTC) if stamp.tzinfo is not None else None
 
 
 # ------------------------------------------------------------------ checks of the measurement
@@ -79,10 +89,19 @@ def _panel(batch: MeasurementBatch, facts: list[PanelFacts | None],
                           "measurements are accepted for it")
 
 
+def _text_problem(name: str, value: str | None, required: bool) -> str | None:
+    if value is None or value == "":
+        return f"{name} is required (1 to {TEXT_MAX} characters)" if required else None
+    if len(value) > TEXT_MAX or _CONTROL.search(value):
+        return f"{name} must be 1 to {TEXT_MAX} characters without control characters"
+    return None
+
+
 def _fields(batch: MeasurementBatch, facts: list[PanelFacts | None],
             usable: np.ndarray) -> Iterator[Problem]:
     times = parse_times(batch.measured_at)
-    for i in np.flatnonzero(usable):
+    optional = [(name, batch.genealogy[name]) for name in GENEALOGY if name in batch.genealogy]
+    for i in np.flatnonzero(usable).tolist():
         product = facts[i].product  # type: ignore[union-attr]
         layer = int(batch.layer[i])
         if not 1 <= layer <= product.layers_per_side:
@@ -96,17 +115,11 @@ def _fields(batch: MeasurementBatch, facts: list[PanelFacts | None],
         if times[i] is None:
             yield Problem(i, None, "measured_at", f"'{batch.measured_at[i]}' is not an ISO 8601 "
                           "time with a time zone (for example 2026-11-02T06:00:00Z)")
-        texts = [("tool", batch.tool[i], True)] + [
-            (name, batch.genealogy.get(name, [None] * len(batch))[i], False)
-            for name in GENEALOGY]
-        for name, value, required in texts:
-            if value is None or value == "":
-                if required:
-                    yield Problem(i, None, name, f"{name} is required (1 to {TEXT_MAX} "
-                                  "characters)")
-            elif len(value) > TEXT_MAX or _CONTROL.search(value):
-                yield Problem(i, None, name, f"{name} must be 1 to {TEXT_MAX} characters "
-                              "without control characters")
+        if (message := _text_problem("tool", batch.tool[i], True)) is not None:
+            yield Problem(i, None, "tool", message)
+        for name, values in optional:
+            if (message := _text_problem(name, values[i], False)) is not None:
+                yield Problem(i, None, name, message)
 
 
 def _site_count(batch: MeasurementBatch, facts: list[PanelFacts | None],

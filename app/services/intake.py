@@ -266,7 +266,7 @@ def write(
                     updates.append((plan.ids[j], serial, old))
             plan.in_force[key] = plan.ids[j]
             position[plan.ids[j]] = j
-        genealogy = [batch.genealogy_of(j) for j in range(len(batch))]
+        genealogy = batch.genealogy_rows()
         bulk.insert(session, Measurement.__table__, _rows(Measurement.__table__, (
             {"panel": serial, "id": plan.ids[j], "layer": int(batch.layer[j]),
              "side": batch.side[j], "frame": batch.frame[j], "tool": batch.tool[j],
