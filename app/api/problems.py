@@ -18,7 +18,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import DomainError, FieldError
-from app.services import keys, rejections
+from app.services import keys, metrics, rejections
 
 log = logging.getLogger("stackledger")
 
@@ -87,20 +87,22 @@ async def refused(
 
 
 def _keep_rejected(request: Request, status: int, detail: str, errors: list[FieldError]) -> None:
-    """Keep a refused upload with its reason. The body is kept only for a caller with a valid
-    key: anonymous callers must not be able to fill the store (their refusal is still noted)."""
+    """Keep a refused upload from a known key with its reason and body. A caller without a
+    valid key is only counted (``metrics``): anonymous callers must not be able to fill the
+    store or take its write lock."""
     db = request.app.state.db
     try:
         label = request.scope.get("stackledger.key_label") or keys.label_for(
             db=db, authorization=request.headers.get("authorization"))
-        known = label != keys.NO_VALID_KEY
-        raw: bytes = request.scope.get("stackledger.body", b"") if known else b""
+        if label == keys.NO_VALID_KEY:
+            metrics.count_anonymous_refusal()
+            return
+        raw: bytes = request.scope.get("stackledger.body", b"")
         rejections.record(
             db=db, endpoint=request.url.path, key_label=label,
-            status=status, reason=detail if known else f"{detail} [body not kept: no valid key]",
-            errors=[e.as_dict() for e in errors],
+            status=status, reason=detail, errors=[e.as_dict() for e in errors],
             content_type=request.headers.get("content-type", ""), body=raw,
-            truncated=known and bool(request.scope.get("stackledger.body_truncated")),
+            truncated=bool(request.scope.get("stackledger.body_truncated")),
         )
     except Exception:  # the answer must still go out; the log says what was lost
         log.exception("could not record a rejected upload to %s", request.url.path)

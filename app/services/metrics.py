@@ -14,6 +14,16 @@ _requests: Counter[tuple[str, str, int]] = Counter()
 _lock = Lock()
 
 
+_anonymous_refusals = 0
+
+
+def count_anonymous_refusal() -> None:
+    """A write refused for want of a valid key: counted, never stored."""
+    global _anonymous_refusals
+    with _lock:
+        _anonymous_refusals += 1
+
+
 def count_request(method: str, route: str, status: int) -> None:
     with _lock:
         _requests[(method, route, status)] += 1
@@ -39,6 +49,12 @@ def exposition(*, db: Database) -> str:
                 f'stackledger_http_requests_total{{method="{method}",route="{route}",'
                 f'status="{status}"}} {n}'
             )
+    lines += [
+        "# HELP stackledger_anonymous_refusals_total Writes refused for want of a valid key "
+        "(counted, not stored).",
+        "# TYPE stackledger_anonymous_refusals_total counter",
+        f"stackledger_anonymous_refusals_total {_anonymous_refusals}",
+    ]
     with db.reading() as session:
         measurements = session.scalar(select(func.count()).select_from(Measurement)) or 0
         rejected = session.scalar(select(func.count()).select_from(RejectedUpload)) or 0

@@ -72,14 +72,25 @@ def test_unexpected_failure_is_a_problem_document_and_the_upload_is_kept(setup, 
     assert kept.status == 500 and kept.key_label == "test tool" and kept.body
 
 
-def test_401_names_the_scheme_and_anonymous_bodies_are_not_kept(setup):
-    db, c, _ = setup
-    r = c.post("/api/v1/measurements", json=measurement("P1", 1, "A"))
+def _anonymous_refusals(c, k) -> int:
+    text = c.get("/metrics", headers=k.headers("admin")).text
+    line = next(x for x in text.splitlines()
+                if x.startswith("stackledger_anonymous_refusals_total "))
+    return int(line.split()[1])
+
+
+def test_anonymous_writes_are_refused_before_the_body_is_read_and_only_counted(setup):
+    db, c, k = setup
+    before, kept_before = _anonymous_refusals(c, k), rejections.count(db=db)
+    for headers in ({}, {"Authorization": "Bearer sl_nope_nope"}, {"Authorization": "Basic x"}):
+        r = c.post("/api/v1/measurements", json=measurement("P1", 1, "A"), headers=headers)
+        assert r.status_code == 401, r.text
+        assert r.headers["www-authenticate"].startswith("Bearer")
+        assert "body was not read" in r.json()["detail"]
+    r = c.post("/api/v1/imports", files={"file": ("big.csv", b"x" * 300_000, "text/csv")})
     assert r.status_code == 401
-    assert r.headers["www-authenticate"].startswith("Bearer")
-    kept = rejections.latest(db=db)
-    assert kept.key_label == "(no valid key)" and kept.body == b""
-    assert "body not kept" in kept.reason
+    assert rejections.count(db=db) == kept_before  # nothing stored for anonymous callers
+    assert _anonymous_refusals(c, k) == before + 4
 
 
 def test_import_onto_a_scrapped_panel_is_refused(setup):
