@@ -49,13 +49,13 @@ def setup(db):
 
 def _layers(serial: str, seed: int) -> list[dict]:
     rng = np.random.default_rng(seed)
-    return [measurement(serial, layer, side, tuple(rng.normal(0, 2, 2)) + (0.002,),
+    return [measurement(serial, layer, side, (*tuple(rng.normal(0, 2, 2)), 0.002),
                         noise=0.5, seed=seed + layer)
             for layer in (1, 2) for side in "AB"]
 
 
 def test_the_same_data_posted_or_imported_gives_the_same_forecast(setup):
-    db, c, k = setup
+    _db, c, k = setup
     # P1 completes its stack and becomes the product's history for the panels after it.
     for m in _layers("P1", 1):
         assert c.post("/api/v1/measurements", json=m, headers=k.headers("tool")).status_code \
@@ -93,7 +93,7 @@ def test_a_file_is_applied_once_and_a_key_cannot_be_reused(setup):
 
 def test_the_write_lock_is_not_held_while_a_batch_is_prepared(setup, monkeypatch):
     """An import paused inside prepare (after its checks and fits) must not keep a post out."""
-    db, c, k = setup
+    _db, c, k = setup
     entered, release = threading.Event(), threading.Event()
     real_estimate = intake._estimate
 
