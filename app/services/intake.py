@@ -90,16 +90,11 @@ def _facts(session: Session, serials: Iterable[str]
     return facts, revisions, completed
 
 
-def _in_force(session: Session, serials: list[str]) -> dict[LayerKey, uuid.UUID]:
-    out: dict[LayerKey, uuid.UUID] = {}
-    for start in range(0, len(serials), 500):
-        for serial, side, layer, mid in session.execute(
-            select(Measurement.panel, Measurement.side, Measurement.layer, Measurement.id)
-            .where(Measurement.panel.in_(serials[start:start + 500]),
-                   Measurement.superseded_by.is_(None))
-        ):
-            out[(serial, side, layer)] = mid
-    return out
+def _in_force(layers: dict[str, state.Layers]) -> dict[LayerKey, uuid.UUID]:
+    """The measurement in force for each panel, side and layer."""
+    return {(serial, side, k): fit.measurement_id
+            for serial, sides in layers.items() for side, by_layer in sides.items()
+            for k, fit in by_layer.items()}
 
 
 def _to_panel_frame(batch: MeasurementBatch, products: list[Product]) -> np.ndarray:
@@ -174,7 +169,7 @@ def prepare(
         layers = state.current_layers_many(session, serials)
         histories = {p.id: product_history(db, session, product=p)
                      for p in {p.id: p for p in products}.values()}
-        in_force = _in_force(session, serials)
+        in_force = _in_force(layers)
     sites = _to_panel_frame(batch, products)
     plan = Plan(
         batch=batch, products=products,
@@ -223,10 +218,11 @@ def _lock(session: Session, plan: Plan) -> dict[str, Panel]:
                                "checked; no further measurements are accepted for it")
         # Another write reached these panels after prepare: read their fits again, here,
         # under the lock, and compute their estimates again.
-        plan.in_force.update(_in_force(session, moved))
+        layers = state.current_layers_many(session, moved)
+        plan.in_force.update(_in_force(layers))
         for s in moved:
             plan.completed[s] = locked[s].completed_at is not None
-        _estimate(plan, moved, state.current_layers_many(session, moved))
+        _estimate(plan, moved, layers)
     return locked
 
 

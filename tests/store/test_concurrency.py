@@ -12,9 +12,10 @@ from app.errors import Conflict, DomainError, InvalidInput
 from app.schemas.measurements import MeasurementCreate
 from app.schemas.panels import PanelCreate
 from app.schemas.products import ProductCreate
-from app.services import keys, measurements, panels, products
+from app.services import keys, measurements, panels, products, state
+from app.services.history import product_history
 from app.services.keys import Principal
-from app.store.tables import Measurement
+from app.store.tables import Measurement, Panel, PanelState, Product
 from tests.factories import make_panel, make_product, measurement, product_data
 
 
@@ -37,6 +38,20 @@ def test_parallel_posts_all_land(db):
     assert replays == [False] * len(jobs)
     with db.transaction() as s:
         assert s.scalar(select(func.count()).select_from(Measurement)) == len(jobs)
+        # Writes prepared outside the lock, racing on the same panels: every stored estimate
+        # must still be the one its fits in force give (stale ones are recomputed under the
+        # lock when the panel's revision moved).
+        for serial in serials:
+            panel = s.get(Panel, serial)
+            assert panel.revision == 6
+            product = s.get(Product, panel.product_id)
+            fresh = state.compute(serial=serial, product=product,
+                                  layers=state.current_layers(s, serial),
+                                  histories=product_history(db, s, product=product))
+            stored = s.get(PanelState, serial)
+            assert stored.layers_a == [1, 2, 3] and stored.layers_b == [1, 2, 3]
+            assert stored.ftb_worst_um == fresh.values["ftb_worst_um"]
+            assert stored.p_exceed == fresh.values["p_exceed"]
 
 
 def _race(n: int, job) -> list:
