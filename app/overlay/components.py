@@ -69,7 +69,8 @@ def _between_ss(y: FloatArray, group: IntArray, n_group: int) -> float:
     return float(np.sum(sums[keep] ** 2 / sizes[keep]))
 
 
-def variance_components(values: FloatArray, levels: Sequence[IntArray]) -> Components:
+def variance_components(values: FloatArray, levels: Sequence[IntArray], *,
+                        absorbed: int = 0) -> Components:
     """Variance components of ``values`` over nested (or crossed) grouping ``levels``.
 
     Parameters
@@ -78,6 +79,9 @@ def variance_components(values: FloatArray, levels: Sequence[IntArray]) -> Compo
     levels : sequence of integer label arrays, each shape (n,), coarsest first. Level j's groups
         are taken jointly with all coarser levels (a lot is the lot on that tool), so labels need
         not be unique across parents.
+    absorbed : degrees of freedom of fixed effects (beyond the mean) already taken out of
+        ``values``; they come off the residual's. Exact when those effects are orthogonal to
+        the groups (balanced data).
     """
     y = np.asarray(values, dtype=np.float64)
     if y.ndim != 1 or y.size < 2:
@@ -107,6 +111,7 @@ def variance_components(values: FloatArray, levels: Sequence[IntArray]) -> Compo
             lower = _coefficient(*joint[row], effect, n_effect)
             coef[row, col] = upper - lower
         coef[row, n_levels] = counts[row + 1] - counts[row]
+    coef[n_levels, n_levels] -= absorbed
     usable = np.diag(coef) > 0
     estimate: FloatArray = np.zeros(n_levels + 1)
     if np.all(usable):

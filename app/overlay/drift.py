@@ -156,6 +156,40 @@ class ChangeEstimate:
     index: int  # first point at or after the start
 
 
+def _profile(
+    t: FloatArray, x: FloatArray, s: FloatArray, candidates: FloatArray, kind: str
+) -> tuple[FloatArray, list[ChangeEstimate]]:
+    """Weighted squared error of a step or a ramp model at each candidate start."""
+    w = 1.0 / s**2
+    sse = np.full(candidates.size, np.inf)
+    fits: list[ChangeEstimate] = []
+    for n, tau in enumerate(candidates):
+        index = int(np.searchsorted(t, tau))
+        if kind == "step":
+            # A step before the first point cannot be dated: it is the first point.
+            regressor = (t >= tau).astype(np.float64) if tau >= t[0] else np.zeros_like(t)
+        else:
+            regressor = np.maximum(t - tau, 0.0)
+        weight = float(np.sum(w * regressor**2))
+        size = float(np.sum(w * regressor * x)) / weight if weight > 0 else 0.0
+        if weight > 0:
+            sse[n] = float(np.sum(w * (x - size * regressor) ** 2))
+        fits.append(ChangeEstimate("step" if kind == "step" else "ramp", float(tau), size, index))
+    return sse, fits
+
+
+def _series(times: FloatArray, values: FloatArray, sigmas: FloatArray, level: float
+            ) -> tuple[FloatArray, FloatArray, FloatArray]:
+    t = _finite("times", times)
+    x = _finite("values", values) - level
+    s = _finite("sigmas", sigmas)
+    if not (t.size == x.size == s.size) or t.size < 2 or np.any(s <= 0):
+        raise OverlayInputError("change_start needs >= 2 points with positive sigmas")
+    if np.any(np.diff(t) < 0):
+        raise OverlayInputError("times must be in ascending order")
+    return t, x, s
+
+
 def change_start(
     times: FloatArray, values: FloatArray, sigmas: FloatArray, *, level: float,
     earliest: float, latest: float, grid: int = 400,
@@ -166,32 +200,35 @@ def change_start(
     step  x_i = level + d * [t_i >= tau];   ramp  x_i = level + b * max(t_i - tau, 0).
     Weighted by 1 / sigma_i^2; the model and tau with the least weighted squared error win. A
     ramp may start before the first point (it is extrapolated back to ``level``), which is how
-    a slow drift that began before the data is dated.
+    a slow drift that began before the data is dated. ``times`` ascending.
     """
-    t = _finite("times", times)
-    x = _finite("values", values) - level
-    s = _finite("sigmas", sigmas)
-    if not (t.size == x.size == s.size) or t.size < 2 or np.any(s <= 0):
-        raise OverlayInputError("change_start needs >= 2 points with positive sigmas")
+    return common_change_start([(times, values, sigmas, level)], earliest=earliest,
+                               latest=latest, grid=grid)[0]
+
+
+def common_change_start(
+    series: list[tuple[FloatArray, FloatArray, FloatArray, float]], *, earliest: float,
+    latest: float, grid: int = 400,
+) -> list[ChangeEstimate]:
+    """One start and one kind of change (step or ramp) shared by several series (the terms and
+    sides of one tool): the pair that minimises the summed squared error; sizes are per series."""
     if not earliest <= latest:
         raise OverlayInputError("earliest must not be after latest")
-    w = 1.0 / s**2
-    best: tuple[float, ChangeEstimate] | None = None
-    candidates = np.unique(np.concatenate([np.linspace(earliest, latest, grid),
-                                           t[(t >= earliest) & (t <= latest)]]))
-    for tau in candidates:
-        for kind in _KINDS:
-            if kind == "step" and tau < t[0]:
-                continue  # a step before the first point cannot be dated: it is the first point
-            regressor = (t >= tau).astype(np.float64) if kind == "step" else np.maximum(t - tau, 0)
-            weight = float(np.sum(w * regressor**2))
-            if weight <= 0.0:
-                continue
-            size = float(np.sum(w * regressor * x)) / weight
-            sse = float(np.sum(w * (x - size * regressor) ** 2))
-            if best is None or sse < best[0] - 1e-12:
-                index = int(np.searchsorted(t, tau, side="left"))
-                best = (sse, ChangeEstimate(kind, float(tau), size, index))
+    if not series:
+        raise OverlayInputError("common_change_start needs at least one series")
+    checked = [_series(*item) for item in series]
+    candidates = np.unique(np.concatenate(
+        [np.linspace(earliest, latest, grid)]
+        + [t[(t >= earliest) & (t <= latest)] for t, _, _ in checked]))
+    best: tuple[float, list[ChangeEstimate]] | None = None
+    for kind in _KINDS:
+        profiles = [_profile(t, x, s, candidates, kind) for t, x, s in checked]
+        total = np.sum([p[0] for p in profiles], axis=0)
+        if not np.any(np.isfinite(total)):
+            continue
+        n = int(np.argmin(total))
+        if best is None or total[n] < best[0] - 1e-12:
+            best = (float(total[n]), [fits[n] for _, fits in profiles])
     if best is None:
         raise OverlayInputError("no candidate start has points after it")
     return best[1]

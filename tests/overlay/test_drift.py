@@ -5,7 +5,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from app.overlay.drift import baseline, change_start, ewma_chart, run_rules, subgroup_sigma
+from app.overlay.drift import (
+    baseline,
+    change_start,
+    common_change_start,
+    ewma_chart,
+    run_rules,
+    subgroup_sigma,
+)
 from app.overlay.errors import OverlayInputError
 
 # NIST/SEMATECH e-Handbook of Statistical Methods, 6.3.2.4, worked example: 20 points, target
@@ -94,3 +101,21 @@ def test_change_start_finds_a_step_and_a_ramp() -> None:
     found = change_start(t, ramp, sig, level=0.0, earliest=-40.0, latest=59.0)
     assert found.kind == "ramp" and abs(found.start + 10) <= 4
     assert found.size == pytest.approx(0.1, abs=0.02)
+
+
+def test_common_change_start_pools_series_with_one_start() -> None:
+    # Seeded: three series share a ramp that began at t = 5 with different slopes; alone each is
+    # noisy, pooled the start is closer to the truth than any single estimate's worst.
+    rng = np.random.default_rng(9)
+    t = np.arange(10.0, 40.0)
+    sig = np.full(t.size, 0.6)
+    series = [(t, b * (t - 5.0) + rng.normal(0, 0.6, t.size), sig, 0.0)
+              for b in (0.05, 0.08, 0.1)]
+    pooled = common_change_start(series, earliest=-20.0, latest=39.0)
+    assert {c.kind for c in pooled} == {"ramp"}
+    assert len({c.start for c in pooled}) == 1
+    assert abs(pooled[0].start - 5.0) <= 3.0
+    singles = [change_start(*s[:3], level=0.0, earliest=-20.0, latest=39.0) for s in series]
+    assert abs(pooled[0].start - 5.0) <= max(abs(c.start - 5.0) for c in singles)
+    with pytest.raises(OverlayInputError, match="ascending"):
+        change_start(t[::-1], t, sig, level=0.0, earliest=0.0, latest=1.0)
