@@ -13,7 +13,7 @@ from fastapi.staticfiles import StaticFiles
 
 from app.api import problems
 from app.api.body import BodyCapture
-from app.api.routes import holds, measurements, panels, products, service
+from app.api.routes import analysis, holds, measurements, panels, products, service
 from app.db import Database
 from app.services import metrics
 
@@ -45,7 +45,7 @@ def create_app(db: Database | None = None) -> FastAPI:
     app.state.db = db or Database()
     problems.install(app)
     app.add_middleware(BodyCapture)
-    for module in (products, panels, measurements, holds, service):
+    for module in (products, panels, measurements, holds, service, analysis):
         app.include_router(module.router)
     # Swagger UI 5 (it reads OpenAPI 3.1), from the files bundled in the fastapi-offline package.
     swagger_dir = importlib.resources.files("fastapi_offline") / "static"

@@ -30,6 +30,7 @@ PERMISSIONS: Final[dict[str, frozenset[str]]] = {
     "hold": frozenset({"engineer", "supervisor", "admin"}),
     "disposition": frozenset({"supervisor", "admin"}),
     "metrics": frozenset(ROLES),
+    "analyse": frozenset({"engineer", "supervisor", "admin"}),
 }
 
 

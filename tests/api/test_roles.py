@@ -31,6 +31,12 @@ MATRIX = [
     ("POST", "/api/v1/holds/{hold}/disposition", {"supervisor", "admin"},
      lambda: {"action": "release", "note": "matrix check"}),
     ("GET", "/metrics", ALL, None),
+    ("GET", "/api/v1/analysis/fingerprints?product=TESTPROD", READERS, None),
+    ("GET", "/api/v1/analysis/shares?product=TESTPROD", READERS, None),
+    ("GET", "/api/v1/analysis/drift?product=TESTPROD", READERS, None),
+    ("GET", "/api/v1/analysis/lots?product=TESTPROD", READERS, None),
+    ("GET", "/api/v1/analysis/trend?product=TESTPROD", READERS, None),
+    ("GET", "/api/v1/analysis/vectors/P0001/A/1", READERS, None),
 ]
 CSV = ("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
        "P0001,2,A,tool,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")
@@ -47,7 +53,8 @@ def _call(c, method, path, role_headers, body):
 def test_matrix_covers_every_route():
     paths = create_app().openapi()["paths"]
     routes = {(m.upper(), path) for path, ops in paths.items() for m in ops}
-    covered = {(m, p.replace("{hold}", "{hold_id}").replace("TESTPROD", "{code}")
+    covered = {(m, p.split("?")[0].replace("{hold}", "{hold_id}").replace("TESTPROD", "{code}")
+                .replace("P0001/A/1", "{serial}/{side}/{layer}")
                 .replace("P0001", "{serial}")) for m, p, _, _ in MATRIX}
     covered.add(("GET", "/api/v1/health"))
     assert routes == covered

@@ -1,0 +1,190 @@
+"""What the FTB analysis reads from the store: layer runs (a measurement in force and its fit)
+of one product, as numpy arrays, by indexed queries.
+
+A window selects runs by ``measured_at`` (index ``ix_measurements_time``); panels are tied to
+the product through ``panels.product_id``. Stacks (every layer of the selected panels, whenever
+it ran) are read by panel, through the ``ix_measurements_current`` index. Nothing here reads the
+sites table except ``site_rows`` for one panel, layer and side.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import numpy as np
+from sqlalchemy import Select, select
+from sqlalchemy.orm import Session
+
+from app.errors import FieldError, InvalidInput, NotFound
+from app.overlay.frames import mirror_terms
+from app.schemas.analysis import AnalysisFilter
+from app.services.products import check_points
+from app.store.tables import Fit, Lot, Measurement, Panel, Product
+
+_TERMS = (Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox, Fit.oy, Fit.kx, Fit.ky)
+_COLUMNS = (Measurement.panel, Lot.code, Measurement.side, Measurement.layer, Measurement.tool,
+            Measurement.measured_at, *_TERMS)
+_BATCH = 500
+
+
+@dataclass(frozen=True)
+class ProductInfo:
+    id: int
+    code: str
+    flip_axis: str
+    ftb_limit_um: float
+    check_x: np.ndarray
+    check_y: np.ndarray
+
+
+@dataclass(frozen=True)
+class Runs:
+    """Layer runs, one entry per measurement in force. Codes index the label tuples."""
+
+    panel: np.ndarray  # int codes into panels
+    lot: np.ndarray
+    tool: np.ndarray
+    side_b: np.ndarray  # bool
+    layer: np.ndarray  # int
+    seconds: np.ndarray  # measured_at, seconds since the epoch (UTC)
+    terms: np.ndarray  # (n, 8), panel frame
+    panels: tuple[str, ...]
+    lots: tuple[str, ...]
+    tools: tuple[str, ...]
+
+    @property
+    def size(self) -> int:
+        return int(self.layer.size)
+
+    @property
+    def sign(self) -> np.ndarray:
+        """+1 on side A, -1 on side B: how a run enters FTB = P_A - P_B."""
+        return np.where(self.side_b, -1.0, 1.0)
+
+    def tool_frame(self, flip_axis: str) -> np.ndarray:
+        """Terms in each tool's own frame: side B mirrored back (frames.mirror_terms)."""
+        out = self.terms.copy()
+        out[self.side_b] = mirror_terms(self.terms[self.side_b], side="B", flip_axis=flip_axis)
+        return out
+
+    def subset(self, keep: np.ndarray) -> Runs:
+        """The runs where ``keep`` holds, with labels re-coded to those still present."""
+
+        def recode(codes: np.ndarray, labels: tuple[str, ...]) -> tuple[np.ndarray,
+                                                                       tuple[str, ...]]:
+            present, inverse = np.unique(codes[keep], return_inverse=True)
+            return inverse.astype(np.int64), tuple(labels[i] for i in present)
+
+        panel, panels = recode(self.panel, self.panels)
+        lot, lots = recode(self.lot, self.lots)
+        tool, tools = recode(self.tool, self.tools)
+        return Runs(panel, lot, tool, self.side_b[keep], self.layer[keep], self.seconds[keep],
+                    self.terms[keep], panels, lots, tools)
+
+
+def product_info(session: Session, code: str) -> ProductInfo:
+    product = session.scalars(select(Product).where(Product.code == code)).one_or_none()
+    if product is None:
+        raise NotFound(f"unknown product '{code}'", [FieldError("unknown product",
+                                                                column="product")])
+    points = check_points(product)
+    return ProductInfo(product.id, product.code, product.flip_axis, product.ftb_limit_um,
+                       points[:, 0], points[:, 1])
+
+
+def check_window(f: AnalysisFilter) -> None:
+    if f.start is not None and f.end is not None and f.start >= f.end:
+        raise InvalidInput("the window is empty: 'from' must be before 'to'",
+                           [FieldError("from must be before to", column="from")])
+    for name, value in (("from", f.start), ("to", f.end)):
+        if value is not None and value.tzinfo is None:
+            raise InvalidInput(f"'{name}' must carry a time zone, e.g. 2026-11-02T00:00Z",
+                               [FieldError("time zone missing", column=name)])
+
+
+def _runs_query(product_id: int) -> Select[Any]:
+    query = (
+        select(*_COLUMNS)
+        .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
+        .join(Panel, Panel.serial == Measurement.panel)
+        .join(Lot, Lot.id == Panel.lot_id)
+        .where(Panel.product_id == product_id, Measurement.superseded_by.is_(None))
+    )
+    return query  # type: ignore[return-value]
+
+
+def _filtered(query: Select[Any], f: AnalysisFilter) -> Select[Any]:
+    if f.start is not None:
+        query = query.where(Measurement.measured_at >= f.start)
+    if f.end is not None:
+        query = query.where(Measurement.measured_at < f.end)
+    if f.tool is not None:
+        query = query.where(Measurement.tool == f.tool)
+    if f.side is not None:
+        query = query.where(Measurement.side == f.side)
+    if f.layer is not None:
+        query = query.where(Measurement.layer == f.layer)
+    if f.lot is not None:
+        query = query.where(Lot.code == f.lot)
+    return query
+
+
+def _to_runs(rows: Sequence[Any]) -> Runs:
+    def codes(values: list[str]) -> tuple[np.ndarray, tuple[str, ...]]:
+        labels, inverse = np.unique(np.array(values, dtype=object), return_inverse=True)
+        return inverse.astype(np.int64), tuple(str(v) for v in labels)
+
+    if not rows:
+        empty = np.zeros(0, dtype=np.int64)
+        return Runs(empty, empty, empty, empty.astype(bool), empty, empty.astype(float),
+                    np.zeros((0, 8)), (), (), ())
+    panel, panels = codes([r[0] for r in rows])
+    lot, lots = codes([r[1] for r in rows])
+    tool, tools = codes([r[4] for r in rows])
+    return Runs(
+        panel=panel, lot=lot, tool=tool,
+        side_b=np.array([r[2] == "B" for r in rows]),
+        layer=np.array([r[3] for r in rows], dtype=np.int64),
+        seconds=np.array([r[5].timestamp() for r in rows], dtype=np.float64),
+        terms=np.array([r[6:14] for r in rows], dtype=np.float64),
+        panels=panels, lots=lots, tools=tools,
+    )
+
+
+def window_runs(session: Session, f: AnalysisFilter) -> tuple[ProductInfo, Runs]:
+    """The runs of the filter's product measured in its window, narrowed by its other fields."""
+    check_window(f)
+    info = product_info(session, f.product)
+    rows = session.execute(_filtered(_runs_query(info.id), f)).all()
+    return info, _to_runs(rows)
+
+
+def stacks(session: Session, info: ProductInfo, serials: Sequence[str]) -> Runs:
+    """Every run in force of the given panels, whenever measured (their whole current stack)."""
+    rows: list[Any] = []
+    serials = sorted(serials)
+    for start in range(0, len(serials), _BATCH):
+        rows += session.execute(
+            _runs_query(info.id).where(Measurement.panel.in_(serials[start:start + _BATCH]))
+        ).all()
+    return _to_runs(rows)
+
+
+def selected_panels(runs: Runs) -> list[str]:
+    """Serials of the panels that have at least one run in ``runs``."""
+    return [runs.panels[i] for i in np.unique(runs.panel)]
+
+
+def both_sides(runs: Runs) -> np.ndarray:
+    """Mask of runs whose panel has at least one layer on each side (it has an FTB)."""
+    n = len(runs.panels)
+    has_a = np.bincount(runs.panel[~runs.side_b], minlength=n) > 0
+    has_b = np.bincount(runs.panel[runs.side_b], minlength=n) > 0
+    return np.asarray((has_a & has_b)[runs.panel])
+
+
+def as_utc(seconds: float) -> datetime:
+    return datetime.fromtimestamp(seconds, tz=UTC)

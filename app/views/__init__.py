@@ -1,0 +1,1 @@
+"""Presentation: tables, CSV and Parquet built from the services' typed answers."""
