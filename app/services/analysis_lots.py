@@ -29,7 +29,8 @@ from app.schemas.analysis import (
 )
 from app.schemas.panels import RiskLevel
 from app.services.analysis_data import check_window, product_info
-from app.store.tables import Fit, Lot, Measurement, Panel, PanelState, Site
+from app.store import sitepack
+from app.store.tables import Fit, Lot, Measurement, Panel, PanelState, SiteSet
 
 
 def _distribution(states: list[Any]) -> dict[str, Any]:
@@ -122,20 +123,17 @@ def site_vectors(*, db: Database, panel: str, side: str, layer: int) -> SiteVect
             raise NotFound(f"no measurement in force for panel '{panel}', side {side}, "
                            f"layer {layer}", [FieldError("not measured", column="layer")])
         m, fit = found
-        sites = session.scalars(select(Site).where(Site.panel == panel,
-                                                   Site.measurement_id == m.id)
-                                .order_by(Site.seq)).all()
+        pack = session.get_one(SiteSet, (panel, m.id))
+        posted, frame = sitepack.unpack(pack.posted), sitepack.unpack(pack.panel_frame)
         terms = np.array([fit.tx, fit.ty, fit.sx, fit.sy, fit.ox, fit.oy, fit.kx, fit.ky])
-        x = np.array([s.x_mm for s in sites], dtype=np.float64)
-        y = np.array([s.y_mm for s in sites], dtype=np.float64)
-        mdx, mdy = evaluate(terms, x, y)
+        mdx, mdy = evaluate(terms, frame[:, 0], frame[:, 1])
         vectors = [
-            SiteVector(seq=s.seq, x_mm_posted=s.x_mm_posted, y_mm_posted=s.y_mm_posted,
-                       dx_um_posted=s.dx_um_posted, dy_um_posted=s.dy_um_posted, x_mm=s.x_mm,
-                       y_mm=s.y_mm, dx_um=s.dx_um, dy_um=s.dy_um, model_dx_um=float(a),
-                       model_dy_um=float(b), residual_dx_um=s.dx_um - float(a),
-                       residual_dy_um=s.dy_um - float(b))
-            for s, a, b in zip(sites, mdx, mdy, strict=True)
+            SiteVector(seq=i, x_mm_posted=float(p[0]), y_mm_posted=float(p[1]),
+                       dx_um_posted=float(p[2]), dy_um_posted=float(p[3]), x_mm=float(f[0]),
+                       y_mm=float(f[1]), dx_um=float(f[2]), dy_um=float(f[3]),
+                       model_dx_um=float(a), model_dy_um=float(b),
+                       residual_dx_um=float(f[2] - a), residual_dy_um=float(f[3] - b))
+            for i, (p, f, a, b) in enumerate(zip(posted, frame, mdx, mdy, strict=True))
         ]
         return SiteVectors(panel=panel, side=m.side, layer=m.layer,
                            tool=m.tool, frame=m.frame, measured_at=m.measured_at,

@@ -209,7 +209,8 @@ def _unreadable(name: str, exc: Exception) -> InvalidInput:
 
 
 def import_csv(
-    *, db: Database, stream: IO[bytes], name: str, principal_label: str, owner: int,
+    *, db: Database, stream: IO[bytes], name: str, principal_label: str,
+    owner: int = idempotency.CLI_OWNER,
     idempotency_key: str | None = None, progress: Progress | None = None,
 ) -> tuple[bool, ImportRead]:
     """Import one CSV file, all or nothing; returns (whether it is a repeat, answer).
