@@ -7,6 +7,7 @@ from typing import Literal
 from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator
 
 from app.schemas.panels import PanelRead
+from app.schemas.text import Identifier, Name
 
 
 class SiteIn(BaseModel):
@@ -28,11 +29,11 @@ class SiteIn(BaseModel):
 class MeasurementCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    panel: str = Field(min_length=1, max_length=64)
+    panel: Identifier
     layer: int
     side: Literal["A", "B"]
     frame: Literal["tool", "panel"] = "tool"
-    tool: str = Field(min_length=1, max_length=64)
+    tool: Name
     measured_at: AwareDatetime
     sites: list[SiteIn]
 
