@@ -138,6 +138,7 @@ def holds_command(
         _fail(exc)
     if csv:
         print(holds_csv(hold_list), end="")
+        err.print(hold_list.caution, soft_wrap=True)  # on stderr: the CSV stays clean
     else:
         print_holds(out, hold_list)
 

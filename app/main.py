@@ -6,13 +6,14 @@ import importlib.resources
 from collections.abc import AsyncIterator, Awaitable, Callable
 from contextlib import asynccontextmanager
 
-from fastapi import FastAPI, Request, Response
+from fastapi import Depends, FastAPI, Request, Response
 from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.responses import HTMLResponse
 from fastapi.staticfiles import StaticFiles
 
 from app.api import problems
 from app.api.body import BodyCapture
+from app.api.parameters import checked_parameters
 from app.api.routes import analysis, holds, measurements, panels, products, service
 from app.db import Database
 from app.services import metrics
@@ -40,7 +41,7 @@ def create_app(db: Database | None = None) -> FastAPI:
     owned = db is None
     app = FastAPI(
         title="stackledger", version="0.1.0", description=DESCRIPTION, docs_url=None,
-        redoc_url=None, lifespan=lifespan,
+        redoc_url=None, lifespan=lifespan, dependencies=[Depends(checked_parameters)],
     )
     app.state.db = db or Database()
     problems.install(app)

@@ -45,8 +45,8 @@ def test_import_panel_and_holds(env, tmp_path):
     r = CliRunner().invoke(cli, ["holds", "--csv"])
     assert r.exit_code == 0
     lines = r.stdout.splitlines()
-    assert "quality procedures" in lines[0] and lines[1].startswith("severity,risk,panel")
-    assert lines[2].split(",")[2] == "P1"
+    assert lines[0].startswith('"severity","risk","panel"') and "quality procedures" in r.stderr
+    assert lines[1].split(",")[2] == '"P1"'
     r = CliRunner().invoke(cli, ["holds"])
     assert "P1" in r.stdout and "qualified engineers" in r.stdout
 
@@ -61,3 +61,25 @@ def test_bad_import_is_refused_and_kept(env, tmp_path):
     assert "line 2, column side" in r.stderr
     kept = rejections.latest(db=env)
     assert kept.endpoint == "cli import bad.csv" and kept.body == path.read_bytes()
+
+
+def test_long_key_label_is_refused_in_one_line(env):
+    r = CliRunner().invoke(cli, ["key", "create", "--role", "tool", "--label", "x" * 101])
+    assert r.exit_code == 2
+    assert "label is 101 characters long; at most 100 are kept" in r.stderr
+    assert "Traceback" not in r.output
+    ok = CliRunner().invoke(cli, ["key", "create", "--role", "tool", "--label", "x" * 100])
+    assert ok.exit_code == 0, ok.output
+
+
+def test_refused_import_of_a_long_file_name_is_recorded(env, tmp_path):
+    from app.services import rejections
+
+    path = tmp_path / ("m" * 206 + ".csv")  # 210 characters: over the 200 kept of an endpoint
+    path.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    r = CliRunner().invoke(cli, ["import", str(path)])
+    assert r.exit_code == 2 and "Traceback" not in r.output
+    kept = rejections.latest(db=env)
+    assert kept is not None and kept.body == path.read_bytes()
+    assert len(kept.endpoint) == 200 and kept.endpoint.startswith("cli import mmm")
+    assert kept.endpoint.endswith("...")

@@ -5,6 +5,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.text import Note
+
 CAUTION = (
     "stackledger flags panels from overlay data and forecasts; it does not decide their fate. "
     "Release, scrap and rework are decisions for the fab's own quality procedures and "
@@ -15,15 +17,15 @@ CAUTION = (
 class HoldCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    reason: str = Field(min_length=3, max_length=2000)
+    reason: Note
 
 
 class DispositionCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     action: Literal["release", "scrap", "rework"]
-    note: str = Field(min_length=3, max_length=2000, description="Required: why, and on whose "
-                      "authority under the fab's quality procedure.")
+    note: Note = Field(description="Required: why, and on whose authority under the fab's "
+                       "quality procedure.")
 
 
 class HoldRead(BaseModel):

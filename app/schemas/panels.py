@@ -5,6 +5,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.text import Identifier, Name
 from app.services.lifecycle import PanelStatus
 
 RiskLevel = Literal["clear", "watch", "at_risk", "over_limit"]
@@ -13,10 +14,9 @@ RiskLevel = Literal["clear", "watch", "at_risk", "over_limit"]
 class PanelCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    # No "/": a serial is a path segment of /panels/{serial}.
-    serial: str = Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9._:-]+$")
-    product: str = Field(min_length=1, max_length=64)
-    lot: str = Field(min_length=1, max_length=64)
+    serial: Identifier  # a path segment of /panels/{serial}: see app.schemas.text
+    product: Identifier
+    lot: Name
 
 
 class SidesInt(BaseModel):

@@ -1,11 +1,12 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Literal
+from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, model_validator
 
 from app.overlay.resistance import RHO_COPPER_20C
+from app.schemas.text import Identifier, single_line
 
 
 class Connection(BaseModel):
@@ -28,8 +29,8 @@ class Connection(BaseModel):
 class ProductCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
-    code: str = Field(min_length=1, max_length=64, pattern=r"^[A-Za-z0-9._-]+$")
-    name: str = Field(default="", max_length=200)
+    code: Identifier
+    name: Annotated[str, AfterValidator(single_line)] = Field(default="", max_length=200)
     layers_per_side: int = Field(ge=1, le=40)
     flip_axis: Literal["x", "y"]
     panel_width_mm: float = Field(gt=0, le=2000)

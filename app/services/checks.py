@@ -23,6 +23,7 @@ import numpy as np
 
 from app.config import get_settings
 from app.errors import FieldError
+from app.schemas.text import control_problem
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.lifecycle import PanelStatus
 from app.store.tables import Product
@@ -30,7 +31,6 @@ from app.store.tables import Product
 MAX_REPORTED: Final = 200
 TEXT_MAX: Final = 64
 _ZONED = re.compile(r"(?:Z|z|[+-]\d\d(?::?\d\d)?)$")
-_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 
 
 @dataclass(frozen=True)
@@ -79,7 +79,10 @@ def _time(text: object) -> datetime | None:
 def _panel(batch: MeasurementBatch, facts: list[PanelFacts | None],
            usable: np.ndarray) -> Iterator[Problem]:
     for i, f in enumerate(facts):
-        if f is None:
+        if (problem := control_problem(batch.panel[i])) is not None:
+            usable[i] = False
+            yield Problem(i, None, "panel", f"panel {problem}")
+        elif f is None:
             usable[i] = False
             yield Problem(i, None, "panel", f"panel '{batch.panel[i]}' is not registered; "
                           "register it first with POST /api/v1/panels")
@@ -92,8 +95,10 @@ def _panel(batch: MeasurementBatch, facts: list[PanelFacts | None],
 def _text_problem(name: str, value: str | None, required: bool) -> str | None:
     if value is None or value == "":
         return f"{name} is required (1 to {TEXT_MAX} characters)" if required else None
-    if len(value) > TEXT_MAX or _CONTROL.search(value):
-        return f"{name} must be 1 to {TEXT_MAX} characters without control characters"
+    if (problem := control_problem(value)) is not None:
+        return f"{name} {problem}"
+    if len(value) > TEXT_MAX:
+        return f"{name} must be 1 to {TEXT_MAX} characters, got {len(value)}"
     return None
 
 

@@ -16,7 +16,6 @@ qualified engineers (``app.schemas.holds.CAUTION``).
 from __future__ import annotations
 
 import uuid
-from datetime import datetime
 from typing import Any, Final
 
 from sqlalchemy import ColumnElement, Row, Select, and_, or_, select
@@ -219,12 +218,8 @@ def _cursor(hold: Hold) -> str:
 
 def _after(cursor: str) -> ColumnElement[bool]:
     """Keyset condition: holds that come after the cursor in the hold-list order."""
-    severity, held_at, panel, hold_id = cursors.decode(cursor, 4)
-    try:
-        severity, panel = int(severity), str(panel)
-        at, key = datetime.fromisoformat(held_at), uuid.UUID(hold_id)
-    except (ValueError, TypeError) as exc:
-        raise cursors.refused() from exc
+    severity, at, panel, key = cursors.decode(
+        cursor, cursors.integer, cursors.instant, cursors.text, cursors.identifier)
     later = or_(Hold.held_at > at, and_(Hold.held_at == at, or_(
         Hold.panel > panel, and_(Hold.panel == panel, Hold.id > key))))
     return or_(Hold.severity < severity, and_(Hold.severity == severity, later))

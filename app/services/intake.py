@@ -32,6 +32,7 @@ from app.db import Database
 from app.errors import FieldError, InvalidInput
 from app.overlay.fit import OverlayFit, fit_many
 from app.overlay.frames import mirror_sites
+from app.schemas.text import control_problem
 from app.services import checks, holds, state
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.checks import PanelFacts
@@ -73,7 +74,9 @@ class Outcome:
 
 def _facts(session: Session, serials: Iterable[str]
            ) -> tuple[dict[str, PanelFacts | None], dict[str, int], dict[str, bool]]:
-    wanted = sorted(set(serials))
+    # A serial with a control character is never looked up (PostgreSQL refuses NUL in a
+    # query); the catalogue reports it.
+    wanted = sorted(s for s in set(serials) if control_problem(s) is None)
     facts: dict[str, PanelFacts | None] = dict.fromkeys(wanted)
     revisions: dict[str, int] = {}
     completed: dict[str, bool] = {}

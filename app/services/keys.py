@@ -15,6 +15,7 @@ from sqlalchemy import select
 
 from app.db import Database
 from app.errors import Forbidden, InvalidInput, NotFound, Unauthenticated
+from app.services import limits
 from app.store.tables import ApiKey, utcnow
 
 ROLES: Final = ("tool", "engineer", "supervisor", "admin")
@@ -59,10 +60,11 @@ def create(*, db: Database, role: str, label: str) -> tuple[str, str]:
         raise InvalidInput(f"role must be one of {', '.join(ROLES)}, got '{role}'")
     if not label.strip():
         raise InvalidInput("label must not be empty")
+    label = limits.checked(label.strip(), ApiKey.label, what="label")
     prefix = secrets.token_hex(4)
     key = f"sl_{prefix}_{secrets.token_urlsafe(24)}"
     with db.transaction() as session:
-        session.add(ApiKey(prefix=prefix, sha256=_digest(key), role=role, label=label.strip()))
+        session.add(ApiKey(prefix=prefix, sha256=_digest(key), role=role, label=label))
     return key, prefix
 
 

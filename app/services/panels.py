@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Any
 
 from sqlalchemy import Select, and_, or_, select
@@ -154,15 +153,9 @@ def list_panels(
         if sort == "p_exceed":
             query = query.where(key.is_not(None))  # a panel with no measurement has no forecast
         if cursor:
-            last_key, last_serial = cursors.decode(cursor, 2)
-            try:
-                if sort == "updated":
-                    last_key = datetime.fromisoformat(last_key)
-                elif sort != "serial":
-                    last_key = float(last_key)
-                last_serial = str(last_serial)
-            except (TypeError, ValueError) as exc:
-                raise cursors.refused() from exc
+            read_key = {"serial": cursors.text, "updated": cursors.instant}.get(sort,
+                                                                               cursors.number)
+            last_key, last_serial = cursors.decode(cursor, read_key, cursors.text)
             beyond = key < last_key if descending else key > last_key
             tie = Panel.serial < last_serial if descending else Panel.serial > last_serial
             query = query.where(or_(beyond, and_(key == last_key, tie)))

@@ -8,6 +8,7 @@ from typing import Any
 from sqlalchemy import func, select
 
 from app.db import Database
+from app.services import limits
 from app.store.tables import RejectedUpload
 
 #: Bodies larger than this are kept truncated (the reason says so).
@@ -23,8 +24,11 @@ def record(
         body = body[:MAX_KEPT_BYTES]
     with db.transaction() as session:
         session.add(RejectedUpload(
-            endpoint=endpoint, key_label=key_label, status=status, reason=reason,
-            errors=errors[:200], content_type=content_type[:200], body=body,
+            endpoint=limits.fitted(endpoint, RejectedUpload.endpoint),
+            key_label=limits.fitted(key_label, RejectedUpload.key_label),
+            status=status, reason=limits.fitted(reason, RejectedUpload.reason),
+            errors=errors[:200],
+            content_type=limits.fitted(content_type, RejectedUpload.content_type), body=body,
         ))
 
 

@@ -79,6 +79,7 @@ BOTH_WAYS = {
     "time that is not a time": (_set("measured_at", "yesterday"), 422, "time zone"),
     "tool too long": (_set("tool", "T" * 65), 422, "tool must be"),
     "tool with a control character": (_set("tool", "EXP\x01"), 422, "control"),
+    "serial with NUL": (_set("panel", "P0001\x00"), 422, "NUL"),
     "metrology tool too long": (_set("metrology_tool", "M" * 65), 422, "metrology_tool"),
 }
 

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 
+import pandas as pd
 import pytest
 
 from app.schemas.holds import CAUTION
 from app.services import audit
-from app.services.hold_list import safe_cell
+from app.services.hold_list import COLUMNS, safe_cell
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
 
@@ -187,19 +189,43 @@ def test_hold_list_csv_is_safe_and_carries_the_caution(setup):
     r = c.get("/api/v1/holds.csv", headers=k.headers("supervisor"))
     assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
     rows = list(csv.reader(io.StringIO(r.text)))
-    assert rows[0][0] == f"# {CAUTION}"
-    header, row = rows[1], rows[2]
+    header, row = rows[0], rows[1]
+    assert header[:3] == ["severity", "risk", "panel"]
     record = dict(zip(header, row, strict=True))
     assert record["reason"] == '\'=HYPERLINK("http://x","y")'
     assert record["lot"] == "'=LOT(1)"
-    assert record["ftb_now_um"] == "0.0"  # a number, not quoted
+    assert ',0.0,' in r.text and record["ftb_now_um"] == "0.0"  # a number, not quoted
+    assert r.headers["stackledger-caution"] == CAUTION
     assert c.get("/api/v1/holds", headers=k.headers("supervisor")).json()["caution"] == CAUTION
+
+
+def test_hold_list_csv_reads_with_defaults_and_a_bare_cr_starts_no_formula(setup):
+    db, c, k = setup
+    for serial, reason in (("CR1", "see\r=1+2"), ("CR2", "two lines\n+SUM(A1)\r\n@x"),
+                           ("CR3", "plain words")):
+        make_panel(db, serial)
+        r = c.post(f"/api/v1/panels/{serial}/holds", json={"reason": reason},
+                   headers=k.headers("engineer"))
+        assert r.status_code == 201, r.text
+    text = c.get("/api/v1/holds.csv", headers=k.headers("supervisor")).text
+    # pandas.read_csv with its defaults: the header is the first line, one row per hold.
+    frame = pd.read_csv(io.StringIO(text))
+    assert list(frame.columns) == list(COLUMNS) and sorted(frame["panel"]) == ["CR1", "CR2", "CR3"]
+    assert frame["ftb_now_um"].dtype.kind == "f"
+    # A reader that ends a row at every bare CR or LF sees no line that starts a formula
+    # (OWASP "CSV Injection": = + - @ tab CR at the start of a cell).
+    for line in re.split(r"\r\n|\r|\n", text):
+        assert not line.startswith(("=", "+", "-", "@", "\t")), line
+        assert not re.search(r',[=+\-@]', line), line  # nor a cell after a delimiter
+    reasons = dict(zip(frame["panel"], frame["reason"], strict=True))
+    assert reasons["CR1"] == "see\r'=1+2" and reasons["CR3"] == "plain words"
 
 
 @pytest.mark.parametrize("value,expected", [
     ("=1+1", "'=1+1"), ("+SUM(A1)", "'+SUM(A1)"), ("-2", "'-2"), ("@cmd", "'@cmd"),
     ("\tx", "'\tx"), ("\0x", "'\0x"), ("\rx", "'\rx"), ("plain", "plain"), (-3.5, -3.5),
-    (12, 12), (None, None),
+    (12, 12), (None, None), ("see\r=1+2", "see\r'=1+2"), ("a\n-1", "a\n'-1"),
+    ("a\r\n@b", "a\r\n'@b"), ("a-b\nc", "a-b\nc"),
 ])
 def test_safe_cell(value, expected):
     # reference: OWASP ASVS 5.0, requirement 1.2.10 (CSV and formula injection)

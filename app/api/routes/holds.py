@@ -8,7 +8,7 @@ from fastapi.responses import PlainTextResponse
 
 from app.api.deps import DbDep, Dispose, Query
 from app.api.problems import PROBLEM_RESPONSES
-from app.schemas.holds import DispositionCreate, HoldList, HoldRead
+from app.schemas.holds import CAUTION, DispositionCreate, HoldList, HoldRead
 from app.services import holds
 from app.services.hold_list import holds_csv
 
@@ -27,15 +27,18 @@ def list_holds(
     return holds.list_holds(db=db, state=state, limit=limit, cursor=cursor)
 
 
-@router.get(".csv", response_class=PlainTextResponse,
-            responses={200: {"content": {"text/csv": {}}}})
+@router.get(".csv", response_class=PlainTextResponse, responses={200: {
+    "content": {"text/csv": {}},
+    "headers": {"Stackledger-Caution": {"description": "Who decides dispositions",
+                                        "schema": {"type": "string"}}}}})
 def list_holds_csv(
     db: DbDep, _: Query, state: Literal["open", "closed"] = "open"
 ) -> PlainTextResponse:
     """The hold list as CSV (cells safe against formula injection)."""
     text = holds_csv(holds.list_all_holds(db=db, state=state))
-    return PlainTextResponse(text, media_type="text/csv; charset=utf-8",
-                             headers={"Content-Disposition": 'attachment; filename="holds.csv"'})
+    return PlainTextResponse(text, media_type="text/csv; charset=utf-8", headers={
+        "Content-Disposition": 'attachment; filename="holds.csv"', "Stackledger-Caution": CAUTION,
+    })
 
 
 @router.post("/{hold_id}/disposition", response_model=HoldRead)
