@@ -38,6 +38,7 @@ class HoldRead(BaseModel):
     severity: int
     layers_reached: dict[str, int]
     ftb_now_um: float
+    ftb_limit_um: float = Field(description="The product's FTB limit.")
     forecast_final_um: float | None
     forecast_band_um: tuple[float, float] | None
     p_exceed: float | None

@@ -95,9 +95,9 @@ def apply_automatic(
 def _with_panel() -> Select[Any]:
     """Holds with what the hold list shows of their panel, in one query (no lookups per row)."""
     return (
-        select(Hold, Lot.code, Product.code, PanelState.risk, PanelState.layers_a,
-               PanelState.layers_b, PanelState.ftb_worst_um, PanelState.forecast,
-               PanelState.p_exceed)
+        select(Hold, Lot.code, Product.code, Product.ftb_limit_um, PanelState.risk,
+               PanelState.layers_a, PanelState.layers_b, PanelState.ftb_worst_um,
+               PanelState.forecast, PanelState.p_exceed)
         .join(Panel, Panel.serial == Hold.panel)
         .join(Lot, Lot.id == Panel.lot_id)
         .join(Product, Product.id == Panel.product_id)
@@ -106,7 +106,7 @@ def _with_panel() -> Select[Any]:
 
 
 def _to_read(row: Row[Any]) -> HoldRead:
-    hold, lot, product, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
+    hold, lot, product, ftb_limit, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
     forecast = forecast or {}
     band = forecast.get("band_um")
     return HoldRead(
@@ -114,7 +114,7 @@ def _to_read(row: Row[Any]) -> HoldRead:
         state=hold.state, kind=hold.kind, rule=hold.rule, risk=risk or "clear",
         severity=hold.severity,
         layers_reached={"A": max(layers_a or [], default=0), "B": max(layers_b or [], default=0)},
-        ftb_now_um=ftb or 0.0,
+        ftb_now_um=ftb or 0.0, ftb_limit_um=ftb_limit,
         forecast_final_um=forecast.get("final_worst_um"),
         forecast_band_um=tuple(band) if band else None,
         p_exceed=p_exceed,
@@ -233,15 +233,23 @@ def _after(cursor: str) -> ColumnElement[bool]:
 
 
 def list_holds(
-    *, db: Database, state: str | None = "open", limit: int = 50, cursor: str | None = None
+    *, db: Database, state: str | None = "open", limit: int = 50, cursor: str | None = None,
+    product: str | None = None, lot: str | None = None, rule: str | None = None,
 ) -> HoldList:
-    """One page of holds ordered by severity (worst first), then age (oldest first)."""
+    """One page of holds ordered by severity (worst first), then age (oldest first),
+    optionally only those of one product, lot or rule."""
     if state not in (None, "open", "closed"):
         raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
     with db.reading() as session:
         query = _with_panel()
         if state:
             query = query.where(Hold.state == state)
+        if product:
+            query = query.where(Product.code == product)
+        if lot:
+            query = query.where(Lot.code == lot)
+        if rule:
+            query = query.where(Hold.rule == rule)
         if cursor:
             query = query.where(_after(cursor))
         rows = session.execute(
@@ -253,11 +261,15 @@ def list_holds(
                         next_cursor=_cursor(rows[limit - 1][0]) if more else None)
 
 
-def list_all_holds(*, db: Database, state: str | None = "open") -> HoldList:
+def list_all_holds(
+    *, db: Database, state: str | None = "open", product: str | None = None,
+    lot: str | None = None, rule: str | None = None,
+) -> HoldList:
     """Every page, for the printed hold list and the CSV export."""
-    page = list_holds(db=db, state=state, limit=500)
+    page = list_holds(db=db, state=state, limit=500, product=product, lot=lot, rule=rule)
     items = list(page.holds)
     while page.next_cursor:
-        page = list_holds(db=db, state=state, limit=500, cursor=page.next_cursor)
+        page = list_holds(db=db, state=state, limit=500, cursor=page.next_cursor,
+                          product=product, lot=lot, rule=rule)
         items += page.holds
     return HoldList(holds=items)

@@ -31,6 +31,8 @@ MATRIX = [
     ("POST", "/api/v1/holds/{hold}/disposition", {"supervisor", "admin"},
      lambda: {"action": "release", "note": "matrix check"}),
     ("GET", "/metrics", ALL, None),
+    ("GET", "/api/v1/audit", READERS, None),
+    ("GET", "/api/v1/rejected-uploads", ALL, None),
 ]
 CSV = ("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
        "P0001,2,A,tool,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")

@@ -1,0 +1,1 @@
+"""Presentation: how figures are phrased and drawn (text filters, SVG charts, CSV)."""
