@@ -14,7 +14,15 @@ from fastapi.staticfiles import StaticFiles
 from app import pages
 from app.api import problems
 from app.api.body import BodyCapture
-from app.api.routes import holds, measurements, panels, products, records, service
+from app.api.routes import (
+    holds,
+    measurements,
+    panel_sites,
+    panels,
+    products,
+    records,
+    service,
+)
 from app.db import Database
 from app.services import metrics
 
@@ -46,7 +54,7 @@ def create_app(db: Database | None = None) -> FastAPI:
     app.state.db = db or Database()
     problems.install(app)
     app.add_middleware(BodyCapture)
-    for module in (products, panels, measurements, holds, records, service):
+    for module in (products, panels, panel_sites, measurements, holds, records, service):
         app.include_router(module.router)
     pages.install(app)
     # Swagger UI 5 (it reads OpenAPI 3.1), from the files bundled in the fastapi-offline package.

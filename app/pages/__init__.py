@@ -8,10 +8,10 @@ from pathlib import Path
 from fastapi import FastAPI
 from fastapi.staticfiles import StaticFiles
 
-from app.pages import auth, board
+from app.pages import auth, board, dispositions, lists, panel
 from app.pages.common import SignInRequired, sign_in_redirect
 
-ROUTERS = (auth.router, board.router)
+ROUTERS = (auth.router, board.router, lists.router, panel.router, dispositions.router)
 
 
 def install(app: FastAPI) -> None:

@@ -24,6 +24,11 @@ class DispositionCreate(BaseModel):
     action: Literal["release", "scrap", "rework"]
     note: str = Field(min_length=3, max_length=2000, description="Required: why, and on whose "
                       "authority under the fab's quality procedure.")
+    rework_side: Literal["A", "B"] | None = Field(
+        default=None, description="Rework only: the side of the layer to redo (default: the "
+        "last layer built).")
+    rework_layer: int | None = Field(default=None, ge=1, le=64, description="Rework only: the "
+                                     "layer to redo; its re-measurement supersedes the old one.")
 
 
 class HoldRead(BaseModel):

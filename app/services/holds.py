@@ -173,6 +173,20 @@ def _last_layer(state: PanelState | None) -> dict[str, int]:
     return {"side": "B", "layer": b} if b >= a and b else {"side": "A", "layer": a}
 
 
+def _rework_target(session: Session, panel: Panel, state: PanelState | None,
+                   data: DispositionCreate) -> dict[str, Any]:
+    """The side and layer to redo: as named, else the last layer built."""
+    if data.rework_side is None and data.rework_layer is None:
+        return _last_layer(state)
+    if data.rework_side is None or data.rework_layer is None:
+        raise InvalidInput("a rework names both the side and the layer, or neither")
+    full = session.get_one(Product, panel.product_id).layers_per_side
+    if data.rework_layer > full:
+        raise InvalidInput(f"rework_layer {data.rework_layer} is beyond the product's "
+                           f"{full} layers a side")
+    return {"side": data.rework_side, "layer": data.rework_layer}
+
+
 def dispose(
     *, db: Database, hold_id: str, data: DispositionCreate, principal: Principal
 ) -> HoldRead:
@@ -181,6 +195,8 @@ def dispose(
         key = uuid.UUID(hold_id)
     except ValueError as exc:
         raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
+    if data.action != "rework" and (data.rework_side or data.rework_layer):
+        raise InvalidInput("rework_side and rework_layer go with a rework only")
     with db.transaction() as session:
         hold = session.scalars(select(Hold).where(Hold.id == key)).one_or_none()
         if hold is None:
@@ -206,7 +222,7 @@ def dispose(
         elif data.action == "scrap":
             panel.status = "scrapped"
         else:
-            details["rework"] = _last_layer(state)
+            details["rework"] = _rework_target(session, panel, state, data)
             hold.figures = {**hold.figures, "rework": details["rework"]}
             panel.status = "in_process"
         audit.record(session, actor=principal.label, action=f"disposition_{data.action}",
@@ -273,3 +289,40 @@ def list_all_holds(
                           product=product, lot=lot, rule=rule)
         items += page.holds
     return HoldList(holds=items)
+
+
+def for_panel(*, db: Database, serial: str) -> list[HoldRead]:
+    """Every hold of one panel, the open one (if any) first, then newest first."""
+    with db.reading() as session:
+        rows = session.execute(
+            _with_panel().where(Hold.panel == serial)
+            .order_by((Hold.state == "open").desc(), Hold.held_at.desc())
+        ).all()
+        return [_to_read(r) for r in rows]
+
+
+def get(*, db: Database, hold_id: str) -> HoldRead:
+    """One hold by its id."""
+    try:
+        key = uuid.UUID(hold_id)
+    except ValueError as exc:
+        raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
+    with db.reading() as session:
+        row = session.execute(_with_panel().where(Hold.id == key)).one_or_none()
+        if row is None:
+            raise NotFound(f"no hold with id '{hold_id}'")
+        return _to_read(row)
+
+
+def review_disposition(*, db: Database, hold_id: str, data: DispositionCreate) -> HoldRead:
+    """Every check ``dispose`` makes, writing nothing: the form's review step."""
+    hold = get(db=db, hold_id=hold_id)
+    if hold.state != "open":
+        raise Conflict(f"hold '{hold_id}' was already closed ({hold.disposition})")
+    if data.action != "rework" and (data.rework_side or data.rework_layer):
+        raise InvalidInput("rework_side and rework_layer go with a rework only")
+    if data.action == "rework":
+        with db.reading() as session:
+            panel = session.get_one(Panel, hold.panel)
+            _rework_target(session, panel, session.get(PanelState, hold.panel), data)
+    return hold

@@ -5,12 +5,13 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
+import numpy as np
 from sqlalchemy import Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, InvalidInput, NotFound
-from app.overlay.model import PER_MM_TO_MICRO
+from app.overlay.model import PER_MM_TO_MICRO, evaluate
 from app.schemas.panels import (
     FtbPoint,
     FtbRead,
@@ -185,10 +186,17 @@ def stack(*, db: Database, serial: str) -> StackRead:
         layers = state.current_layers(session, serial)
         summary = st.stack if st is not None else {}
         cumulative = summary.get("cumulative_worst_um", [])
+        worst_at = (st.ftb_worst_x_mm, st.ftb_worst_y_mm) if st is not None else (0.0, 0.0)
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
+            position = np.zeros(2)
             for k in sorted(layers[side]):
                 f = layers[side][k].row
+                # The side's outermost layer relative to the core at the worst check point:
+                # the sum of its layer models there (DOMAIN.md, accumulation).
+                dx, dy = evaluate(layers[side][k].terms, np.array([worst_at[0]]),
+                                  np.array([worst_at[1]]))
+                position += (float(dx[0]), float(dy[0]))
                 out.append(StackLayerRead(
                     side=side,  # type: ignore[arg-type]
                     layer=k,
@@ -209,9 +217,11 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     sigma_y_um=f.sigma_y_um,
                     l2l_worst_um=summary.get("l2l_worst_um", {}).get(side, {}).get(str(k), 0.0),
                     cumulative_ftb_worst_um=_cumulative_at(cumulative, k),
+                    side_position_um=(float(position[0]), float(position[1])),
                 ))
         return StackRead(
             serial=panel.serial,
+            worst_at_mm=worst_at,
             layers=out,
             residual_sigma_um=tuple(summary.get("residual_sigma_um", (0.0, 0.0))),  # type: ignore[arg-type]
             linear_worst_case_um=summary.get("linear_worst_case_um", 0.0),

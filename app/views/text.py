@@ -68,14 +68,43 @@ def rule_words(rule: str) -> str:
     return rule.replace("_", " ")
 
 
-def first_sentence(text: str) -> str:
-    """The one-line reason of a list row (the panel page shows them all)."""
+def first_sentence(text: str, limit: int = 120) -> str:
+    """The one-line reason of a list row: its first sentence, cut at a word near ``limit``
+    characters (the panel page shows every reason whole)."""
     head, dot, _ = text.partition(". ")
-    return head + "." if dot else text
+    head = head + "." if dot else text
+    if len(head) <= limit:
+        return head
+    return head[:limit].rsplit(" ", 1)[0].rstrip(",;(") + " …"
+
+
+def missing(layers: Any) -> str:
+    """Missing layers as 'A3, B5'."""
+    return ", ".join([f"A{k}" for k in layers.A] + [f"B{k}" for k in layers.B])
+
+
+def audit_details(details: dict[str, Any]) -> str:
+    """The few figures of an audit entry a person reads; the API has them all."""
+    parts = []
+    if note := details.get("note") or details.get("reason"):
+        parts.append(f"“{note}”")
+    if rework := details.get("rework"):
+        parts.append(f"rework side {rework.get('side')} layer {rework.get('layer')}")
+    if details.get("ftb_worst_um") is not None:
+        parts.append(f"FTB {details['ftb_worst_um']:.1f} µm")
+    if details.get("p_exceed") is not None:
+        parts.append(f"p {probability(details['p_exceed'])}")
+    if rule := details.get("rule"):
+        parts.append(f"rule {rule_words(rule)}")
+    for key in ("product", "lot"):
+        if key in details:
+            parts.append(f"{key} {details[key]}")
+    return "; ".join(parts) or "–"
 
 
 FILTERS: Final[dict[str, Callable[..., Any]]] = {
     "um": um, "number": number, "probability": probability, "when": when,
     "level_words": level_words, "level_shape": level_shape, "level_class": level_class,
     "status_words": status_words, "rule_words": rule_words, "first_sentence": first_sentence,
+    "missing": missing, "audit_details": audit_details,
 }

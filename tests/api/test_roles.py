@@ -22,6 +22,7 @@ MATRIX = [
     ("GET", "/api/v1/panels", READERS, None),
     ("GET", "/api/v1/panels/P0001", READERS, None),
     ("GET", "/api/v1/panels/P0001/stack", READERS, None),
+    ("GET", "/api/v1/panels/P0001/sites", READERS, None),
     ("POST", "/api/v1/panels/P0001/holds", READERS, lambda: {"reason": "checking the matrix"}),
     ("POST", "/api/v1/measurements", {"tool", "admin"},
      lambda: measurement("P0001", 1, "A", (1.0,))),
