@@ -32,6 +32,14 @@ class Settings(BaseSettings):
     forecast_samples: int = 2000
     history_window_panels: int = 200
     sqlite_busy_timeout_ms: int = 30_000
+    session_secret: str = Field(
+        default="", description="Signs page sessions; when empty, read from (or generated "
+        "into) session_secret_file.",
+    )
+    session_secret_file: Path = Field(
+        default_factory=lambda: Path.cwd() / "stackledger-session.key",
+        description="Where a generated page-session secret is kept (mode 0600).",
+    )
 
 
 @lru_cache

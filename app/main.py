@@ -11,10 +11,20 @@ from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.responses import HTMLResponse
 from fastapi.staticfiles import StaticFiles
 
+from app import pages
 from app.api import problems
 from app.api.body import BodyCapture
 from app.api.parameters import checked_parameters
-from app.api.routes import analysis, holds, measurements, panels, products, service
+from app.api.routes import (
+    analysis,
+    holds,
+    measurements,
+    panel_sites,
+    panels,
+    products,
+    records,
+    service,
+)
 from app.db import Database
 from app.services import metrics
 
@@ -46,8 +56,10 @@ def create_app(db: Database | None = None) -> FastAPI:
     app.state.db = db or Database()
     problems.install(app)
     app.add_middleware(BodyCapture)
-    for module in (products, panels, measurements, holds, service, analysis):
+    for module in (products, panels, panel_sites, measurements, holds, records, service,
+                   analysis):
         app.include_router(module.router)
+    pages.install(app)
     # Swagger UI 5 (it reads OpenAPI 3.1), from the files bundled in the fastapi-offline package.
     swagger_dir = importlib.resources.files("fastapi_offline") / "static"
     app.mount("/static/swagger", StaticFiles(directory=str(swagger_dir)), name="swagger")

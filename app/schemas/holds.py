@@ -26,6 +26,11 @@ class DispositionCreate(BaseModel):
     action: Literal["release", "scrap", "rework"]
     note: Note = Field(description="Required: why, and on whose authority under the fab's "
                        "quality procedure.")
+    rework_side: Literal["A", "B"] | None = Field(
+        default=None, description="Rework only: the side of the layer to redo (default: the "
+        "last layer built).")
+    rework_layer: int | None = Field(default=None, ge=1, le=64, description="Rework only: the "
+                                     "layer to redo; its re-measurement supersedes the old one.")
 
 
 class HoldRead(BaseModel):
@@ -40,6 +45,7 @@ class HoldRead(BaseModel):
     severity: int
     layers_reached: dict[str, int]
     ftb_now_um: float
+    ftb_limit_um: float = Field(description="The product's FTB limit.")
     forecast_final_um: float | None
     forecast_band_um: tuple[float, float] | None
     p_exceed: float | None

@@ -96,11 +96,16 @@ class StackLayerRead(BaseModel):
     cumulative_ftb_worst_um: float = Field(
         description="Worst FTB over the check points using layers 1..layer of both sides."
     )
+    side_position_um: tuple[float, float] = Field(
+        description="This side's layers 1..layer summed at the worst check point (worst_at_mm): "
+        "where the side's top layer sits relative to the core there, panel frame."
+    )
 
 
 class StackRead(BaseModel):
     serial: str
     frame: Literal["panel"] = "panel"
+    worst_at_mm: tuple[float, float] = Field(description="The check point of the worst FTB now.")
     layers: list[StackLayerRead]
     residual_sigma_um: tuple[float, float]
     linear_worst_case_um: float = Field(description="Planning figure, not the estimate.")

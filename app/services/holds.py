@@ -95,9 +95,9 @@ def apply_automatic(
 def _with_panel() -> Select[Any]:
     """Holds with what the hold list shows of their panel, in one query (no lookups per row)."""
     return (
-        select(Hold, Lot.code, Product.code, PanelState.risk, PanelState.layers_a,
-               PanelState.layers_b, PanelState.ftb_worst_um, PanelState.forecast,
-               PanelState.p_exceed)
+        select(Hold, Lot.code, Product.code, Product.ftb_limit_um, PanelState.risk,
+               PanelState.layers_a, PanelState.layers_b, PanelState.ftb_worst_um,
+               PanelState.forecast, PanelState.p_exceed)
         .join(Panel, Panel.serial == Hold.panel)
         .join(Lot, Lot.id == Panel.lot_id)
         .join(Product, Product.id == Panel.product_id)
@@ -106,13 +106,13 @@ def _with_panel() -> Select[Any]:
 
 
 def _to_read(row: Row[Any]) -> HoldRead:
-    hold, lot, product, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
+    hold, lot, product, ftb_limit, risk, layers_a, layers_b, ftb, forecast, p_exceed = row
     return HoldRead(
         id=str(hold.id), panel=hold.panel, lot=lot, product=product,
         state=hold.state, kind=hold.kind, rule=hold.rule, risk=risk or "clear",
         severity=hold.severity,
         layers_reached={"A": max(layers_a or [], default=0), "B": max(layers_b or [], default=0)},
-        ftb_now_um=ftb or 0.0,
+        ftb_now_um=ftb or 0.0, ftb_limit_um=ftb_limit,
         forecast_final_um=forecast.final_worst_um if forecast else None,
         forecast_band_um=forecast.band_um if forecast else None,
         p_exceed=p_exceed,
@@ -169,6 +169,20 @@ def _last_layer(state: PanelState | None) -> dict[str, int]:
     return {"side": "B", "layer": b} if b >= a and b else {"side": "A", "layer": a}
 
 
+def _rework_target(session: Session, panel: Panel, state: PanelState | None,
+                   data: DispositionCreate) -> dict[str, Any]:
+    """The side and layer to redo: as named, else the last layer built."""
+    if data.rework_side is None and data.rework_layer is None:
+        return _last_layer(state)
+    if data.rework_side is None or data.rework_layer is None:
+        raise InvalidInput("a rework names both the side and the layer, or neither")
+    full = session.get_one(Product, panel.product_id).layers_per_side
+    if data.rework_layer > full:
+        raise InvalidInput(f"rework_layer {data.rework_layer} is beyond the product's "
+                           f"{full} layers a side")
+    return {"side": data.rework_side, "layer": data.rework_layer}
+
+
 def dispose(
     *, db: Database, hold_id: str, data: DispositionCreate, principal: Principal
 ) -> HoldRead:
@@ -177,6 +191,8 @@ def dispose(
         key = uuid.UUID(hold_id)
     except ValueError as exc:
         raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
+    if data.action != "rework" and (data.rework_side or data.rework_layer):
+        raise InvalidInput("rework_side and rework_layer go with a rework only")
     with db.transaction() as session:
         hold = session.scalars(select(Hold).where(Hold.id == key)).one_or_none()
         if hold is None:
@@ -201,7 +217,7 @@ def dispose(
         if data.action == "release":
             hold.figures = {**hold.figures, "at_release": figures}
         elif data.action == "rework":
-            details["rework"] = _last_layer(state)
+            details["rework"] = _rework_target(session, panel, state, data)
             hold.figures = {**hold.figures, "rework": details["rework"]}
         panel.status = next_status(panel.status, event,
                                    all_layers_on=_all_layers_on(session, panel),
@@ -226,15 +242,23 @@ def _after(cursor: str) -> ColumnElement[bool]:
 
 
 def list_holds(
-    *, db: Database, state: str | None = "open", limit: int = 50, cursor: str | None = None
+    *, db: Database, state: str | None = "open", limit: int = 50, cursor: str | None = None,
+    product: str | None = None, lot: str | None = None, rule: str | None = None,
 ) -> HoldList:
-    """One page of holds ordered by severity (worst first), then age (oldest first)."""
+    """One page of holds ordered by severity (worst first), then age (oldest first),
+    optionally only those of one product, lot or rule."""
     if state not in (None, "open", "closed"):
         raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
     with db.reading() as session:
         query = _with_panel()
         if state:
             query = query.where(Hold.state == state)
+        if product:
+            query = query.where(Product.code == product)
+        if lot:
+            query = query.where(Lot.code == lot)
+        if rule:
+            query = query.where(Hold.rule == rule)
         if cursor:
             query = query.where(_after(cursor))
         rows = session.execute(
@@ -246,11 +270,52 @@ def list_holds(
                         next_cursor=_cursor(rows[limit - 1][0]) if more else None)
 
 
-def list_all_holds(*, db: Database, state: str | None = "open") -> HoldList:
+def list_all_holds(
+    *, db: Database, state: str | None = "open", product: str | None = None,
+    lot: str | None = None, rule: str | None = None,
+) -> HoldList:
     """Every page, for the printed hold list and the CSV export."""
-    page = list_holds(db=db, state=state, limit=500)
+    page = list_holds(db=db, state=state, limit=500, product=product, lot=lot, rule=rule)
     items = list(page.holds)
     while page.next_cursor:
-        page = list_holds(db=db, state=state, limit=500, cursor=page.next_cursor)
+        page = list_holds(db=db, state=state, limit=500, cursor=page.next_cursor,
+                          product=product, lot=lot, rule=rule)
         items += page.holds
     return HoldList(holds=items)
+
+
+def for_panel(*, db: Database, serial: str) -> list[HoldRead]:
+    """Every hold of one panel, the open one (if any) first, then newest first."""
+    with db.reading() as session:
+        rows = session.execute(
+            _with_panel().where(Hold.panel == serial)
+            .order_by((Hold.state == "open").desc(), Hold.held_at.desc())
+        ).all()
+        return [_to_read(r) for r in rows]
+
+
+def get(*, db: Database, hold_id: str) -> HoldRead:
+    """One hold by its id."""
+    try:
+        key = uuid.UUID(hold_id)
+    except ValueError as exc:
+        raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
+    with db.reading() as session:
+        row = session.execute(_with_panel().where(Hold.id == key)).one_or_none()
+        if row is None:
+            raise NotFound(f"no hold with id '{hold_id}'")
+        return _to_read(row)
+
+
+def review_disposition(*, db: Database, hold_id: str, data: DispositionCreate) -> HoldRead:
+    """Every check ``dispose`` makes, writing nothing: the form's review step."""
+    hold = get(db=db, hold_id=hold_id)
+    if hold.state != "open":
+        raise Conflict(f"hold '{hold_id}' was already closed ({hold.disposition})")
+    if data.action != "rework" and (data.rework_side or data.rework_layer):
+        raise InvalidInput("rework_side and rework_layer go with a rework only")
+    if data.action == "rework":
+        with db.reading() as session:
+            panel = session.get_one(Panel, hold.panel)
+            _rework_target(session, panel, session.get(PanelState, hold.panel), data)
+    return hold

@@ -263,7 +263,7 @@ def import_path(
     except DomainError as exc:
         with path.open("rb") as stream:
             body = stream.read(rejections.MAX_KEPT_BYTES + 1)
-        rejections.record(db=db, endpoint=f"cli import {path.name}"[:200], key_label=label,
+        rejections.record(db=db, endpoint=f"cli import {path.name}", key_label=label,
                           status=exc.status, reason=exc.detail,
                           errors=[e.as_dict() for e in exc.errors], content_type="text/csv",
                           body=body, truncated=len(body) > rejections.MAX_KEPT_BYTES)

@@ -32,6 +32,9 @@ PERMISSIONS: Final[dict[str, frozenset[str]]] = {
     "disposition": frozenset({"supervisor", "admin"}),
     "metrics": frozenset(ROLES),
     "analyse": frozenset({"engineer", "supervisor", "admin"}),
+    "read_audit": frozenset({"engineer", "supervisor", "admin"}),
+    # Each key sees its own refused uploads; admin sees all (see services.rejections).
+    "read_rejections": frozenset(ROLES),
 }
 
 
@@ -99,3 +102,13 @@ def label_for(*, db: Database, authorization: str | None) -> str:
         return authenticate(db=db, authorization=authorization).label
     except Unauthenticated:
         return NO_VALID_KEY
+
+
+def principal_by_id(*, db: Database, key_id: int) -> Principal:
+    """The principal of a key by its id, re-checked on every page request so that a revoked
+    key ends its sessions at once."""
+    with db.reading() as session:
+        row = session.get(ApiKey, key_id)
+        if row is None or row.revoked_at is not None:
+            raise Unauthenticated("the API key behind this session is unknown or revoked")
+        return Principal(key_id=row.id, label=row.label, role=row.role)

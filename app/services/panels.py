@@ -4,12 +4,13 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
 from sqlalchemy import Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, InvalidInput, NotFound
-from app.overlay.model import report_units
+from app.overlay.model import evaluate, report_units
 from app.schemas.panels import (
     ForecastRead,
     FtbPoint,
@@ -185,12 +186,18 @@ def stack(*, db: Database, serial: str) -> StackRead:
         st = session.get(PanelState, serial)
         layers = state.current_layers(session, serial)
         summary = st.stack if st is not None else None
+        worst_at = (st.ftb_worst_x_mm, st.ftb_worst_y_mm) if st is not None else (0.0, 0.0)
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
             l2l = getattr(summary.l2l_worst_um, side) if summary else {}
+            position = np.zeros(2)
             for k in sorted(layers[side]):
                 f = layers[side][k]
                 report = report_units(f.terms)
+                # The side's outermost layer relative to the core at the worst check point:
+                # the sum of its layer models there (docs/conventions.md, accumulation).
+                dx, dy = evaluate(f.terms, np.array([worst_at[0]]), np.array([worst_at[1]]))
+                position += (float(dx[0]), float(dy[0]))
                 out.append(StackLayerRead(
                     side=side,  # type: ignore[arg-type]
                     layer=k,
@@ -212,9 +219,11 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     l2l_worst_um=l2l[k],
                     cumulative_ftb_worst_um=_cumulative_at(summary.cumulative_worst_um, k)
                     if summary else 0.0,
+                    side_position_um=(float(position[0]), float(position[1])),
                 ))
         return StackRead(
             serial=panel.serial,
+            worst_at_mm=worst_at,
             layers=out,
             residual_sigma_um=summary.residual_sigma_um if summary else (0.0, 0.0),
             linear_worst_case_um=summary.linear_worst_case_um if summary else 0.0,

@@ -1,1 +1,2 @@
-"""Presentation: tables, CSV and Parquet built from the services' typed answers."""
+"""Presentation: how figures are phrased and drawn (text filters, SVG charts), tables, CSV and
+Parquet built from the services' typed answers."""

@@ -22,6 +22,7 @@ MATRIX = [
     ("GET", "/api/v1/panels", READERS, None),
     ("GET", "/api/v1/panels/P0001", READERS, None),
     ("GET", "/api/v1/panels/P0001/stack", READERS, None),
+    ("GET", "/api/v1/panels/P0001/sites", READERS, None),
     ("POST", "/api/v1/panels/P0001/holds", READERS, lambda: {"reason": "checking the matrix"}),
     ("POST", "/api/v1/measurements", {"tool", "admin"},
      lambda: measurement("P0001", 1, "A", (1.0,))),
@@ -37,6 +38,8 @@ MATRIX = [
     ("GET", "/api/v1/analysis/lots?product=TESTPROD", READERS, None),
     ("GET", "/api/v1/analysis/trend?product=TESTPROD", READERS, None),
     ("GET", "/api/v1/analysis/vectors/P0001/A/1", READERS, None),
+    ("GET", "/api/v1/audit", READERS, None),
+    ("GET", "/api/v1/rejected-uploads", ALL, None),
 ]
 CSV = ("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
        "P0001,2,A,tool,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")

@@ -12,6 +12,7 @@ import socket
 import threading
 import time
 from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -48,23 +49,17 @@ class LiveServer:
     engineer_key: str
 
 
-@pytest.fixture(scope="module")
-def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer]:
-    """The app under uvicorn on 127.0.0.1, on a migrated SQLite file with a product, a panel
-    and an engineer key registered through the services."""
-    get_settings.cache_clear()
-    path = tmp_path_factory.mktemp("browser") / "store.db"
-    db = Database(f"sqlite:///{path}")
-    upgrade(db.engine)
-    product = make_product(db)
-    serial = make_panel(db, serial="BRW-0001", product=product)
-    key, _prefix = keys.create(db=db, role="engineer", label="browser test")
-
+@contextmanager
+def serving(db: Database, secret: bytes | None = None) -> Iterator[str]:
+    """The app on ``db`` under uvicorn in a thread on a free port of 127.0.0.1; yields its URL."""
+    app = create_app(db)
+    if secret is not None:
+        app.state.session_secret = secret
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
     sock.bind((HOST, 0))  # a free port, held from here on: no race with other processes
     port = sock.getsockname()[1]
-    config = uvicorn.Config(create_app(db), host=HOST, port=port, log_level="warning",
+    config = uvicorn.Config(app, host=HOST, port=port, log_level="warning",
                             access_log=False, lifespan="on")
     server = uvicorn.Server(config)
     thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]},
@@ -78,14 +73,30 @@ def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer
             pytest.fail("uvicorn did not start within 10 s")
         time.sleep(0.02)
     try:
-        yield LiveServer(url=f"http://{HOST}:{port}", product=product, serial=serial,
-                         engineer_key=key)
+        yield f"http://{HOST}:{port}"
     finally:
         server.should_exit = True
         thread.join(timeout=10)
         sock.close()
-        db.close()
         assert not thread.is_alive(), "uvicorn did not shut down within 10 s"
+
+
+@pytest.fixture(scope="module")
+def live_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[LiveServer]:
+    """The app under uvicorn on 127.0.0.1, on a migrated SQLite file with a product, a panel
+    and an engineer key registered through the services."""
+    get_settings.cache_clear()
+    path = tmp_path_factory.mktemp("browser") / "store.db"
+    db = Database(f"sqlite:///{path}")
+    upgrade(db.engine)
+    product = make_product(db)
+    serial = make_panel(db, serial="BRW-0001", product=product)
+    key, _prefix = keys.create(db=db, role="engineer", label="browser test")
+    try:
+        with serving(db) as url:
+            yield LiveServer(url=url, product=product, serial=serial, engineer_key=key)
+    finally:
+        db.close()
 
 
 @pytest.fixture(scope="session")
@@ -114,3 +125,38 @@ def page(browser: Any) -> Iterator[Any]:
         yield page
     finally:
         context.close()
+
+
+@dataclass(frozen=True)
+class DemoServer:
+    url: str
+    db: Database
+    keys: dict[str, str]
+    database: str
+
+
+@pytest.fixture(scope="module", params=["sqlite", "postgresql"])
+def demo_server(request: pytest.FixtureRequest,
+                tmp_path_factory: pytest.TempPathFactory) -> Iterator[DemoServer]:
+    """The demo scenario (sample_data/) loaded through the services into a store on each
+    database, served on 127.0.0.1, with one demo key per role."""
+    from sqlalchemy import text
+
+    from app.demo.loader import load_into
+    from app.store.tables import Base
+
+    get_settings.cache_clear()
+    if request.param == "sqlite":
+        db = Database(f"sqlite:///{tmp_path_factory.mktemp('demo') / 'demo.db'}")
+        upgrade(db.engine)
+    else:
+        db = Database(request.getfixturevalue("pg_url"))
+        tables = ", ".join(f'"{t.name}"' for t in reversed(Base.metadata.sorted_tables))
+        with db.engine.begin() as conn:
+            conn.execute(text(f"TRUNCATE {tables} RESTART IDENTITY CASCADE"))
+    demo_keys = load_into(db)
+    try:
+        with serving(db, secret=b"browser-test-secret") as url:
+            yield DemoServer(url=url, db=db, keys=demo_keys, database=request.param)
+    finally:
+        db.close()

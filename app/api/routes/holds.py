@@ -22,9 +22,14 @@ def list_holds(
     state: Literal["open", "closed"] = "open",
     limit: Annotated[int, QueryParam(ge=1, le=500)] = 50,
     cursor: str | None = None,
+    product: Annotated[str | None, QueryParam(max_length=64)] = None,
+    lot: Annotated[str | None, QueryParam(max_length=64)] = None,
+    rule: Annotated[str | None, QueryParam(max_length=40)] = None,
 ) -> HoldList:
-    """The hold list, worst first then oldest first, with the disposition caution; paged."""
-    return holds.list_holds(db=db, state=state, limit=limit, cursor=cursor)
+    """The hold list, worst first then oldest first, with the disposition caution; paged;
+    optionally one product's, lot's or rule's."""
+    return holds.list_holds(db=db, state=state, limit=limit, cursor=cursor, product=product,
+                            lot=lot, rule=rule)
 
 
 @router.get(".csv", response_class=PlainTextResponse, responses={200: {
@@ -32,10 +37,14 @@ def list_holds(
     "headers": {"Stackledger-Caution": {"description": "Who decides dispositions",
                                         "schema": {"type": "string"}}}}})
 def list_holds_csv(
-    db: DbDep, _: Query, state: Literal["open", "closed"] = "open"
+    db: DbDep, _: Query, state: Literal["open", "closed"] = "open",
+    product: Annotated[str | None, QueryParam(max_length=64)] = None,
+    lot: Annotated[str | None, QueryParam(max_length=64)] = None,
+    rule: Annotated[str | None, QueryParam(max_length=40)] = None,
 ) -> PlainTextResponse:
-    """The hold list as CSV (cells safe against formula injection)."""
-    text = holds_csv(holds.list_all_holds(db=db, state=state))
+    """The hold list as CSV (cells safe against formula injection); the same filters."""
+    text = holds_csv(holds.list_all_holds(db=db, state=state, product=product, lot=lot,
+                                          rule=rule))
     return PlainTextResponse(text, media_type="text/csv; charset=utf-8", headers={
         "Content-Disposition": 'attachment; filename="holds.csv"', "Stackledger-Caution": CAUTION,
     })

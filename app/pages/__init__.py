@@ -1,0 +1,22 @@
+"""Server-rendered pages for the line and the engineers (Jinja2 templates, SVG charts drawn on
+the server, static files served by the app: no build step, no network)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from fastapi import FastAPI
+from fastapi.staticfiles import StaticFiles
+
+from app.pages import auth, board, dispositions, lists, panel
+from app.pages.common import SignInRequired, sign_in_redirect
+
+ROUTERS = (auth.router, board.router, lists.router, panel.router, dispositions.router)
+
+
+def install(app: FastAPI) -> None:
+    for router in ROUTERS:
+        app.include_router(router)
+    app.add_exception_handler(SignInRequired, sign_in_redirect)
+    app.mount("/static/pages", StaticFiles(directory=str(Path(__file__).parent / "static")),
+              name="pages-static")
