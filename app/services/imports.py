@@ -29,12 +29,13 @@ from sqlalchemy.orm import Session
 from app.config import get_settings
 from app.db import Database
 from app.errors import DomainError, FieldError, InvalidInput
-from app.overlay.fit import fit_many
+from app.overlay.fit import fit_many, reach_of
 from app.overlay.frames import mirror_sites
 from app.schemas.measurements import ImportRead
 from app.services import holds, rejections, state
 from app.services.history import learn
 from app.services.measurements import fit_row
+from app.services.products import check_points
 from app.store import bulk
 from app.store.tables import Fit, Measurement, Panel, PanelState, Product, Site, utcnow
 
@@ -252,14 +253,16 @@ def _write(session: Session, df: pd.DataFrame, run: _Run) -> None:
             px[rows], py[rows], pdx[rows], pdy[rows] = mirror_sites(
                 x[rows], y[rows], dx[rows], dy[rows], side="B", flip_axis=axis)
     trapezoid = np.array([p.model_terms == 8 for p in products])
+    reaches = {p.id: reach_of(check_points(p)) for p in {p.id: p for p in products}.values()}
     fits: list[Any] = [None] * len(starts)
     for flag in (False, True):
         idx = np.flatnonzero(trapezoid == flag)
         if not len(idx):
             continue
         sel = np.concatenate([np.arange(starts[i], starts[i] + counts[i]) for i in idx])
+        reach = np.array([reaches[products[i].id] for i in idx])
         for i, f in zip(idx, fit_many(px[sel], py[sel], pdx[sel], pdy[sel], counts[idx],
-                                      trapezoid=flag), strict=True):
+                                      trapezoid=flag, reach_mm=reach), strict=True):
             fits[i] = f
     received = utcnow()
     ids = [uuid.uuid4() for _ in starts]

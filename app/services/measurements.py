@@ -18,11 +18,12 @@ from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, FieldError, InvalidInput
-from app.overlay.fit import OverlayFit, fit_measurement
+from app.overlay.fit import OverlayFit, fit_measurement, reach_of
 from app.overlay.frames import mirror_sites
 from app.schemas.measurements import FitRead, MeasurementCreate, MeasurementRead
 from app.services import holds, panels, state
 from app.services.keys import Principal
+from app.services.products import check_points
 from app.services.validation import check_measurement
 from app.store import bulk
 from app.store.tables import (
@@ -52,6 +53,7 @@ def fit_row(serial: str, measurement_id: uuid.UUID, fit: OverlayFit) -> dict[str
         "max_residual_um": fit.max_residual_um,
         "max_residual_x_mm": fit.max_residual_at_mm[0],
         "max_residual_y_mm": fit.max_residual_at_mm[1],
+        "leverage": fit.leverage,
     }
 
 
@@ -131,7 +133,8 @@ def accept(
             )
         px, py, pdx, pdy = raw if data.frame == "panel" else mirror_sites(
             *raw, side=data.side, flip_axis=product.flip_axis)
-        fit = fit_measurement(px, py, pdx, pdy, trapezoid=product.model_terms == 8)
+        fit = fit_measurement(px, py, pdx, pdy, trapezoid=product.model_terms == 8,
+                              reach_mm=reach_of(check_points(product)))
         new_id = uuid.uuid4()
         superseded = supersede_current(
             session, serial=panel.serial, layer=data.layer, side=data.side, new_id=new_id

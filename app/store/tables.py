@@ -191,6 +191,9 @@ class Fit(Base):
     max_residual_um: Mapped[float]
     max_residual_x_mm: Mapped[float]
     max_residual_y_mm: Mapped[float]
+    #: Largest leverage of the model over the product's check points (fit guard); None for fits
+    #: stored before it was kept.
+    leverage: Mapped[float | None]
 
 
 class PanelState(Base):
