@@ -23,22 +23,7 @@ Three solves share that rank rule:
 - ``solve_group``, every other measurement: the orthogonalisation runs on all of them at once,
   right-hand sides included (``Orthogonal``).
 
-The fit guard. A model that the sites determine can still be useless where it is used: four
-sites in a 10 mm square fix a scale term, but its noise, carried out to check points 230 mm
-away, grows by the ratio of the distances (a median worst vector of some 60 um from 1 um of site
-noise). The rule is on the variance of the model's prediction. With B the basis at the sites and
-z(p) the basis at a point p, ordinary least squares gives var(model(p)) = sigma^2 h(p), where
-h(p) = z(p)^T (B^T B)^-1 z(p) is the leverage of p (for a site, its hat-matrix diagonal; the
-same quantity as the standard error of the mean prediction in statsmodels' OLS
-``get_prediction``, divided by sigma). A model is kept only where h(p) <= ``LEVERAGE_MAX`` = 1
-over the reach, the box around the product's check points: its error there is then no larger
-than the noise of a single site measured at that point, so a fit never claims more than the
-sites can say. Translation always passes (h = 1/n), so there is always a fallback. h is a
-convex quadratic along every line parallel to an axis (z is affine in u for fixed v and the
-other way round, and (B^T B)^-1 is positive definite), so its maximum over a box is at one of
-the box's corners; the four corners are all that is evaluated. The Gram-Schmidt factor B = W R
-(W orthogonal columns, R unit upper triangular) gives h = sum_i c_i^2 / |w_i|^2 with
-R^T c = z, for every nested model at once (``Orthogonal.leverage``).
+The fit guard (leverage of the check points, and the fallback it forces) is in ``_guard``.
 """
 
 from __future__ import annotations
@@ -48,6 +33,13 @@ from typing import Final, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
+from app.overlay._guard import (
+    LEVERAGE_MAX,
+    chosen_leverage,
+    cover_reason,
+    reach_leverage,
+    sites_box,
+)
 from app.overlay.model import FloatArray
 
 IntArray = NDArray[np.int64]
@@ -66,10 +58,6 @@ RANK_RTOL: Final = 1e-9
 #: all sites are taken to coincide.
 SPREAD_RTOL: Final = 1e-12
 NO_DOF_NOTE: Final = "no residual degrees of freedom: sigma reported as 0"
-#: Largest leverage over the reach for a model to be kept (see the module docstring); the
-#: margin above 1 keeps four sites exactly at the reach's corners (h = 1 there) from falling
-#: back on round-off.
-LEVERAGE_MAX: Final = 1.0 + 1e-9
 #: Fewest measurements of one layout worth a shared operator: below about this many (measured at
 #: 49 sites), the per-layout work, a couple of dozen small numpy calls, costs more than the
 #: batched orthogonalisation of the same measurements.
@@ -178,27 +166,6 @@ class Orthogonal:
                 self.mu[i][j] = np.einsum("gn,gn->g", w, cols[j - 1]) * inv
                 cols[j - 1] = cols[j - 1] - self.mu[i][j][:, np.newaxis] * w
 
-    def leverage(self, pu: FloatArray, pv: FloatArray) -> FloatArray:
-        """Leverage h at points pu, pv (g, m) (normalised like the sites) of every nested model.
-
-        Returns (g, m, k): entry [..., i] is h for the model of the first i + 1 basis columns.
-        Forward substitution R^T c = z on the unit triangular factor, then
-        h = sum_i c_i^2 / |w_i|^2 (|w_0|^2 = n for the ones column; see the module docstring).
-        """
-        g, n = self.n_sites
-        if self.k == 1:
-            return np.full((*pu.shape, 1), 1.0 / n)
-        swap = self.swap[:, np.newaxis]
-        z = [np.ones_like(pu), np.where(swap, pv, pu), np.where(swap, pu, pv), pu * pv]
-        c: list[FloatArray] = []
-        parts = []
-        for j in range(self.k):
-            cj = z[j] - sum((self.mu[i][j][:, np.newaxis] * c[i] for i in range(j)), 0.0 * pu)
-            c.append(cj)
-            inv = np.full(g, 1.0 / n) if j == 0 else self.inv_ww[j]
-            parts.append(np.square(cj) * inv[:, np.newaxis])
-        return np.cumsum(np.stack(parts, axis=-1), axis=-1)
-
     def solve(self, rhs: list[FloatArray], choice: IntArray) -> tuple[FloatArray, list[FloatArray]]:
         """Least squares of each right-hand side (g, n) on the model ``choice`` (g,) picks.
 
@@ -256,38 +223,6 @@ def rank_flags(orth: Orthogonal) -> dict[str, BoolArray]:
     return flags
 
 
-def reach_leverage(
-    orth: Orthogonal, frame: FloatArray, reach: FloatArray
-) -> dict[str, FloatArray]:
-    """Largest leverage over the reach of every model ``orth`` can carry; (g,) each.
-
-    ``reach`` (g, 4) is (x_lo, x_hi, y_lo, y_hi) in mm; ``frame`` (g, 3) is the sites'
-    normalisation. The maximum over a box is at a corner (module docstring).
-    """
-    cx, cy, s = (frame[:, i, np.newaxis] for i in range(3))
-    pu = (reach[:, [0, 1, 0, 1]] - cx) / s
-    pv = (reach[:, [2, 2, 3, 3]] - cy) / s
-    h = orth.leverage(pu, pv).max(axis=1)
-    out = {"translation": h[:, 0]}
-    if orth.k >= 3:
-        out["linear"] = h[:, 2]
-    if orth.k == 4:
-        out["trapezoid"] = h[:, 3]
-    return out
-
-
-def sites_box(x: FloatArray, y: FloatArray) -> FloatArray:
-    """The box around each measurement's own sites (g, n) as a reach (g, 4)."""
-    return np.stack([x.min(axis=1), x.max(axis=1), y.min(axis=1), y.max(axis=1)], axis=-1)
-
-
-def _cover_reason(name: str, h: float) -> str:
-    return (
-        f"sites cover too little of the check points for {name} (its error there would be "
-        f"up to {np.sqrt(h):.1f} x the site noise)"
-    )
-
-
 def choose(
     n: int,
     requested: str,
@@ -330,7 +265,7 @@ def choose(
             reasons.setdefault(j, []).append(why)
         if leverage is not None:
             for j in np.flatnonzero(thin).tolist():
-                reasons.setdefault(j, []).append(_cover_reason(name, float(leverage[name][j])))
+                reasons.setdefault(j, []).append(cover_reason(name, float(leverage[name][j])))
         undecided &= ~(ok & covered)
     notes: list[str | None] = [None] * g
     no_dof = [n - N_BASIS[m] <= 0 for m in MODELS]
@@ -341,12 +276,6 @@ def choose(
             parts.append(NO_DOF_NOTE)
         notes[j] = "; ".join(parts)
     return choice, notes
-
-
-def chosen_leverage(leverage: dict[str, FloatArray], choice: IntArray) -> FloatArray:
-    """The largest leverage over the reach of the model each measurement got; (g,)."""
-    table = np.stack([leverage.get(m, leverage["translation"]) for m in MODELS], axis=-1)
-    return table[np.arange(choice.size), choice]
 
 
 def to_terms(coef: FloatArray, frame: FloatArray) -> FloatArray:

@@ -37,8 +37,11 @@ import numpy as np
 from numpy.typing import NDArray
 
 from app.overlay import _lsq
+from app.overlay._guard import check_reach, reach_of
 from app.overlay.errors import OverlayInputError
 from app.overlay.model import PER_MM_TO_MICRO, TERM_NAMES, FloatArray
+
+__all__ = ["FIGURES", "OverlayFit", "fit_many", "fit_measurement", "reach_of"]
 
 #: Order of ``OverlayFit.figures``.
 FIGURES: Final = (
@@ -223,23 +226,6 @@ def _check_counts(counts: object, total: int) -> NDArray[np.int64]:
     return c.astype(np.int64)
 
 
-def _check_reach(reach_mm: object, rows: int | None) -> FloatArray | None:
-    """``reach_mm`` as (4,) (rows None) or (rows, 4): finite boxes with lo <= hi."""
-    if reach_mm is None:
-        return None
-    r = np.asarray(reach_mm, dtype=np.float64)
-    shapes = [(4,)] if rows is None else [(4,), (rows, 4)]
-    if r.shape not in shapes:
-        want = " or ".join(str(t) for t in shapes)
-        raise OverlayInputError(f"reach_mm must have shape {want}, got {r.shape}")
-    if not np.isfinite(r).all():
-        raise OverlayInputError("reach_mm must be finite")
-    box = r.reshape(-1, 4)
-    if np.any(box[:, 0] > box[:, 1]) or np.any(box[:, 2] > box[:, 3]):
-        raise OverlayInputError("reach_mm is (x_lo, x_hi, y_lo, y_hi) with lo <= hi")
-    return r
-
-
 #: OverlayFit's slot setters in field order. A frozen dataclass's __init__ sets each field through
 #: object.__setattr__ from Python; the slot descriptors, called from map in ``_make_fits``, set
 #: the same fields in about half the time. There is no __post_init__ to skip, and the objects
@@ -284,23 +270,6 @@ def _make_fits(g: int, columns: Iterable[Iterable[object]]) -> list[OverlayFit]:
 # ----------------------------------------------------------------------------- public API
 
 
-def reach_of(points_mm: FloatArray) -> FloatArray:
-    """The reach of a product: the box (x_lo, x_hi, y_lo, y_hi) around its check points (P, 2).
-
-    Raises
-    ------
-    OverlayInputError
-        No points, a wrong shape or non-finite values.
-    """
-    p = np.asarray(points_mm, dtype=np.float64)
-    if p.ndim != 2 or p.shape[1] != 2 or p.shape[0] == 0:
-        raise OverlayInputError(f"points_mm must have shape (P, 2), P >= 1, got {p.shape}")
-    if not np.isfinite(p).all():
-        raise OverlayInputError("points_mm must be finite")
-    lo, hi = p.min(axis=0), p.max(axis=0)
-    return np.array([lo[0], hi[0], lo[1], hi[1]])
-
-
 def fit_measurement(
     x: FloatArray,
     y: FloatArray,
@@ -337,7 +306,7 @@ def fit_measurement(
         Non-finite values, mismatched lengths, no sites or a bad reach.
     """
     x, y, dx, dy = _check_sites(x, y, dx, dy)
-    reach = _check_reach(reach_mm, None)
+    reach = check_reach(reach_mm, None)
     n = x.size
     if n == 0:
         raise OverlayInputError("a measurement needs at least one site, got none")
@@ -383,7 +352,7 @@ def fit_many(
     """
     x, y, dx, dy = _check_sites(x, y, dx, dy)
     c = _check_counts(counts, x.size)
-    reach = _check_reach(reach_mm, c.size)
+    reach = check_reach(reach_mm, c.size)
     requested = "trapezoid" if trapezoid else "linear"
     if c.size == 0:
         return []

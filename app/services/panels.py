@@ -185,6 +185,7 @@ def stack(*, db: Database, serial: str) -> StackRead:
         layers = state.current_layers(session, serial)
         summary = st.stack if st is not None else {}
         cumulative = summary.get("cumulative_worst_um", [])
+        faces = {(c["side"], c["layer"]): c for c in summary.get("capture", [])}
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
             for k in sorted(layers[side]):
@@ -209,6 +210,7 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     sigma_y_um=f.sigma_y_um,
                     l2l_worst_um=summary.get("l2l_worst_um", {}).get(side, {}).get(str(k), 0.0),
                     cumulative_ftb_worst_um=_cumulative_at(cumulative, k),
+                    **_capture_read(faces.get((side, k))),
                 ))
         return StackRead(
             serial=panel.serial,
@@ -216,7 +218,20 @@ def stack(*, db: Database, serial: str) -> StackRead:
             residual_sigma_um=tuple(summary.get("residual_sigma_um", (0.0, 0.0))),  # type: ignore[arg-type]
             linear_worst_case_um=summary.get("linear_worst_case_um", 0.0),
             rss_um=summary.get("rss_um", 0.0),
+            stacked_via=summary.get("stacked_via"),
         )
+
+
+def _capture_read(face: dict[str, Any] | None) -> dict[str, Any]:
+    """StackLayerRead's capture fields from the stored interface figures."""
+    if face is None:
+        return {}
+    return {
+        "fit_se_um": face["model_se_um"], "capture_margin_um": face["margin_um"],
+        "p_miss": face["p_miss"], "p_miss_at_mm": face["p_miss_at_mm"],
+        "overhang_um": face["overhang_um"], "overlap_fraction": face["overlap_fraction"],
+        "contact_resistance_ratio": face["resistance_ratio"],
+    }
 
 
 def _cumulative_at(cumulative: list[float], k: int) -> float:

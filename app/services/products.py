@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, NotFound
+from app.overlay.capture import ViaGeometry
 from app.overlay.stack import default_check_points
-from app.schemas.products import Connection, ProductCreate, ProductRead
+from app.schemas.products import ProductCreate, ProductRead, Vias
 from app.services import audit
 from app.store.tables import Product
 
@@ -28,8 +31,44 @@ def to_read(product: Product) -> ProductRead:
         check_points_mm=[(float(x), float(y)) for x, y in product.check_points_mm],
         p_watch=product.p_watch,
         p_at_risk=product.p_at_risk,
-        connection=Connection(**product.connection) if product.connection else None,
+        vias=_vias(product),
         created_at=product.created_at,
+    )
+
+
+def _vias(product: Product) -> Vias | None:
+    if product.via_diameter_um is None or product.pad_diameter_um is None:
+        return None
+    return Vias(
+        via_diameter_um=product.via_diameter_um,
+        pad_diameter_um=product.pad_diameter_um,
+        layers=product.via_layers or [],  # type: ignore[arg-type]
+        copper_thickness_um=product.copper_thickness_um,
+        pad_width_um=product.pad_width_um,
+        via_depth_um=product.via_depth_um,
+        resistivity_ohm_m=product.resistivity_ohm_m,
+    )
+
+
+def _via_columns(vias: Vias | None) -> dict[str, Any]:
+    """The Product columns of via settings (all None without them)."""
+    if vias is None:
+        return {"via_diameter_um": None, "pad_diameter_um": None, "via_layers": None,
+                "copper_thickness_um": None, "pad_width_um": None, "via_depth_um": None,
+                "resistivity_ohm_m": None}
+    return {**vias.model_dump(exclude={"layers"}),
+            "via_layers": [v.model_dump() for v in vias.layers]}
+
+
+def via_geometry(product: Product) -> ViaGeometry | None:
+    """The product's via and pad diameters for the core, or None without via settings."""
+    if product.via_diameter_um is None or product.pad_diameter_um is None:
+        return None
+    return ViaGeometry(
+        product.via_diameter_um,
+        product.pad_diameter_um,
+        {int(v["layer"]): (float(v["via_diameter_um"]), float(v["pad_diameter_um"]))
+         for v in product.via_layers or []},
     )
 
 
@@ -53,19 +92,16 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> tuple[bool, Prod
         points = [(round(float(x), 6), round(float(y), 6)) for x, y in grid]
     with db.transaction() as session:
         existing = session.scalars(select(Product).where(Product.code == data.code)).one_or_none()
-        fields = data.model_dump(exclude={"check_points_mm", "connection"})
-        connection = data.connection.model_dump() if data.connection else None
+        fields = {**data.model_dump(exclude={"check_points_mm", "vias"}),
+                  **_via_columns(data.vias)}
         if existing is not None:
             same = all(getattr(existing, k) == v for k, v in fields.items()) and (
-                existing.connection == connection
-                and [tuple(p) for p in existing.check_points_mm] == [tuple(p) for p in points]
+                [tuple(p) for p in existing.check_points_mm] == [tuple(p) for p in points]
             )
             if not same:
                 raise Conflict(f"product '{data.code}' exists with different settings")
             return False, to_read(existing)
-        product = Product(
-            **fields, check_points_mm=[list(p) for p in points], connection=connection
-        )
+        product = Product(**fields, check_points_mm=[list(p) for p in points])
         session.add(product)
         session.flush()
         audit.record(session, actor=actor, action="product_create", subject=data.code,

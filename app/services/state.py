@@ -7,7 +7,7 @@ forecast of the final FTB (core, with the product's history) -> risk (core) -> s
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
@@ -15,12 +15,14 @@ from sqlalchemy import Row, select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
+from app.overlay.capture import InterfaceCapture, interface_capture
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
-from app.overlay.resistance import RHO_COPPER_20C, resistance_ohm
+from app.overlay.model import evaluate
+from app.overlay.resistance import RHO_COPPER_20C, stacked_via
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
 from app.services.history import product_history
-from app.services.products import check_points
+from app.services.products import check_points, via_geometry
 from app.store.tables import Fit, Measurement, Panel, PanelState, Product, utcnow
 
 #: What a state rebuild and the stack view read of each measurement in force: plain columns,
@@ -28,7 +30,7 @@ from app.store.tables import Fit, Measurement, Panel, PanelState, Product, utcno
 _LAYER_COLUMNS = (
     Measurement.panel, Measurement.side, Measurement.layer, Measurement.id, Measurement.tool,
     Measurement.measured_at, Fit.model, Fit.note, Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox,
-    Fit.oy, Fit.kx, Fit.ky, Fit.sigma_x_um, Fit.sigma_y_um,
+    Fit.oy, Fit.kx, Fit.ky, Fit.sigma_x_um, Fit.sigma_y_um, Fit.leverage,
 )
 
 
@@ -42,6 +44,10 @@ class CurrentLayer:
     def terms(self) -> np.ndarray:
         r = self.row
         return np.array([r.tx, r.ty, r.sx, r.sy, r.ox, r.oy, r.kx, r.ky], dtype=np.float64)
+
+    @property
+    def sigma(self) -> tuple[float, float]:
+        return (self.row.sigma_x_um, self.row.sigma_y_um)
 
     @property
     def residual_var(self) -> tuple[float, float]:
@@ -76,18 +82,38 @@ def _missing(present: list[int]) -> list[int]:
     return [k for k in range(1, top + 1) if k not in present]
 
 
-def _resistance(product: Product, ftb_worst_um: float) -> float | None:
-    """Resistance of the product's representative connection when the FTB misregistration
-    adds to its routed length: R = rho (L + dL) / (w t) (DOMAIN.md, resistance impact)."""
-    c = product.connection
-    if not c:
-        return None
-    return resistance_ohm(
-        (c["length_um"] + ftb_worst_um) * 1e-6,
-        c["width_um"] * 1e-6,
-        c["thickness_um"] * 1e-6,
-        rho_ohm_m=c.get("resistivity_ohm_m", RHO_COPPER_20C),
-    )
+def _stored(figures: Any) -> dict[str, Any]:
+    """A core figures dataclass as JSON: an infinite ratio (a via off its pad) stored as None."""
+    return {k: None if isinstance(v, float) and not np.isfinite(v) else v
+            for k, v in asdict(figures).items()}
+
+
+def _capture(
+    product: Product, layers: Layers, points: np.ndarray
+) -> tuple[list[InterfaceCapture], dict[str, Any]]:
+    """Each interface's L2L offset with the fit's standard error and, with via settings, its
+    capture figures; and the stacked-via extra resistance as a figure (DOMAIN.md, "Vias,
+    capture margin and connection resistance")."""
+    vias = via_geometry(product)
+    faces = [
+        interface_capture(
+            side=side, layer=k, terms=cl.terms, sigma_um=cl.sigma,
+            # Fits stored before the guard have no leverage: taken as 0 (the model as exact).
+            leverage=cl.row.leverage or 0.0, points_mm=points, vias=vias,
+        )
+        for side in ("A", "B") for k, cl in sorted(layers[side].items())
+    ]
+    figures: dict[str, Any] = {"capture": [_stored(f) for f in faces], "stacked_via": None}
+    if vias is not None and product.copper_thickness_um and faces:
+        lengths = [np.hypot(*evaluate(layers[f.side][f.layer].terms, points[:, 0], points[:, 1]))
+                   for f in faces]
+        figures["stacked_via"] = _stored(stacked_via(
+            np.array(lengths), np.array([vias.diameters(f.layer)[0] for f in faces]), points,
+            pad_width_um=product.pad_width_um or vias.pad_diameter_um,
+            copper_thickness_um=product.copper_thickness_um, via_depth_um=product.via_depth_um,
+            rho_ohm_m=product.resistivity_ohm_m or RHO_COPPER_20C,
+        ))
+    return faces, figures
 
 
 def _forecast(
@@ -173,21 +199,18 @@ def refresh(
         "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
         "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
     }
-    resistance = _resistance(product, stack.worst_um)
+    faces, capture = _capture(product, layers, points)
     assessment = assess(
         ftb_worst_um=stack.worst_um,
         ftb_worst_at_mm=stack.worst_at_mm,
-        l2l_worst_a_um=l2l["A"],
-        l2l_worst_b_um=l2l["B"],
+        interfaces=faces,
         forecast=forecast,
         thresholds=RiskThresholds(
             ftb_limit_um=product.ftb_limit_um,
             l2l_limit_um=product.l2l_limit_um,
             p_watch=product.p_watch,
             p_at_risk=product.p_at_risk,
-            resistance_limit_ohm=(product.connection or {}).get("resistance_limit_ohm"),
         ),
-        resistance_ohm=resistance,
     )
     points_out = [
         {
@@ -209,7 +232,7 @@ def refresh(
         "ftb_worst_y_mm": float(stack.worst_at_mm[1]),
         "ftb_points": points_out,
         "l2l_worst_um": float(max([*l2l["A"].values(), *l2l["B"].values()], default=0.0)),
-        "stack": {**_stack_summary(l2l, stack), "resistance_ohm": resistance},
+        "stack": {**_stack_summary(l2l, stack), **capture},
         "forecast": {
             "final_worst_um": forecast.final_worst_um,
             "band_um": list(forecast.band_um),

@@ -94,7 +94,14 @@ class Product(Base):
     check_points_mm: Mapped[list[Any]]
     p_watch: Mapped[float]
     p_at_risk: Mapped[float]
-    connection: Mapped[dict[str, Any] | None]
+    #: Via settings (all None: the product has none and L2L is judged by l2l_limit_um alone).
+    via_diameter_um: Mapped[float | None]
+    pad_diameter_um: Mapped[float | None]
+    via_layers: Mapped[list[Any] | None]  # [{"layer", "via_diameter_um", "pad_diameter_um"}]
+    copper_thickness_um: Mapped[float | None]
+    pad_width_um: Mapped[float | None]
+    via_depth_um: Mapped[float | None]
+    resistivity_ohm_m: Mapped[float | None]
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
 

@@ -7,7 +7,7 @@ import pytest
 from numpy.testing import assert_allclose
 from skimage.transform import AffineTransform
 
-from app.overlay import _lsq
+from app.overlay import _guard, _lsq
 from app.overlay.errors import OverlayInputError
 from app.overlay.fit import OverlayFit, fit_many, fit_measurement, reach_of
 from app.overlay.model import design_matrix, evaluate
@@ -591,13 +591,14 @@ def test_leverage_agrees_with_statsmodels(trapezoid: bool, seed: int) -> None:
     h_ref = res.get_prediction(corners).se_mean ** 2 / res.scale
     u, v, frame = _lsq.normalise(x[np.newaxis], y[np.newaxis])
     orth = _lsq.Orthogonal(u, v, k)
-    lev = _lsq.reach_leverage(orth, frame, reach[np.newaxis])
+    lev = _guard.reach_leverage(orth, frame, reach[np.newaxis])
     assert_allclose(lev[fit.model][0], h_ref.max(), rtol=1e-9)
     # And pointwise against numpy: z^T pinv(X^T X) z at the corners.
     pu = (cx - frame[0, 0]) / frame[0, 2]
     pv = (cy - frame[0, 1]) / frame[0, 2]
     h_np = np.einsum("mi,ij,mj->m", corners, np.linalg.pinv(exog.T @ exog), corners)
-    assert_allclose(orth.leverage(pu[np.newaxis], pv[np.newaxis])[0, :, k - 1], h_np, rtol=1e-9)
+    h_ours = _guard.leverage(orth, pu[np.newaxis], pv[np.newaxis])[0, :, k - 1]
+    assert_allclose(h_ours, h_np, rtol=1e-9)
     assert_allclose(h_np, h_ref, rtol=1e-9)
 
 
@@ -611,8 +612,8 @@ def test_leverage_maximum_over_a_box_is_at_a_corner() -> None:
     gx, gy = np.meshgrid(np.linspace(-250, 250, 41), np.linspace(-260, 260, 41))
     pu = ((gx.ravel() - frame[0, 0]) / frame[0, 2])[np.newaxis]
     pv = ((gy.ravel() - frame[0, 1]) / frame[0, 2])[np.newaxis]
-    inside = orth.leverage(pu, pv)[0].max(axis=0)
-    box = _lsq.reach_leverage(orth, frame, np.array([[-250.0, 250.0, -260.0, 260.0]]))
+    inside = _guard.leverage(orth, pu, pv)[0].max(axis=0)
+    box = _guard.reach_leverage(orth, frame, np.array([[-250.0, 250.0, -260.0, 260.0]]))
     assert_allclose(box["trapezoid"][0], inside[3], rtol=1e-12)
     assert_allclose(box["linear"][0], inside[2], rtol=1e-12)
 
