@@ -97,7 +97,7 @@ class ProductSpec:
     l2l_limit_um: float
     model_terms: int
     site_grid: tuple[int, float]  # sites per axis, pitch in mm
-    connection: dict[str, float] | None = None
+    vias: dict[str, Any] | None = None
 
     def to_json(self) -> dict[str, Any]:
         record: dict[str, Any] = {
@@ -113,14 +113,16 @@ class ProductSpec:
             "p_watch": 0.05,
             "p_at_risk": 0.20,
         }
-        if self.connection is not None:
-            record["connection"] = dict(self.connection)
+        if self.vias is not None:
+            record["vias"] = dict(self.vias)
         return record
 
 
-# C75's connection: R = rho L / (w t) = 1.68e-8 * 2e-3 / (12e-6 * 10e-6) = 0.28 ohm (DOMAIN.md,
-# "Resistance impact", handbook copper). Each um of extra routed length adds 1.4e-4 ohm, so the
-# 0.29 ohm limit is reached at ~71 um, beyond the 60 um FTB limit: informative, not the driver.
+# C75's vias: 35 um vias on 65 um pads, a capture margin of 15 um, above the 12 um L2L limit so
+# that an in-control layer (worst offset at most 0.8 x 12 um, 1.5 um site noise) misses with a
+# probability of a few in a thousand at worst, while a registration jump of 18-20 um runs off
+# its pads. Layer 1 lands on the core's larger capture pads (50 um vias on 90 um pads). The
+# stacked-via figure uses 15 um pad copper and 25 um deep vias (invented, plausible).
 PRODUCTS: Final = (
     ProductSpec("C55", "Carrier 55, 12+12 build-up", "y", 55.0, 12.0, 6, (4, 140.0)),
     ProductSpec(
@@ -132,11 +134,11 @@ PRODUCTS: Final = (
         8,
         (5, 100.0),
         {
-            "width_um": 12.0,
-            "thickness_um": 10.0,
-            "length_um": 2000.0,
-            "resistivity_ohm_m": 1.68e-8,
-            "resistance_limit_ohm": 0.29,
+            "via_diameter_um": 35.0,
+            "pad_diameter_um": 65.0,
+            "layers": [{"layer": 1, "via_diameter_um": 50.0, "pad_diameter_um": 90.0}],
+            "copper_thickness_um": 15.0,
+            "via_depth_um": 25.0,
         },
     ),
 )
@@ -448,8 +450,9 @@ serials and tools are fiction.
 - `products.json`: {summary.products} products, 12 + 12 build-up layers, 510 x 515 mm panels,
   L2L limit 12 um, default check points (5 x 5 over the central 90 %).
   - C55: flip about y, 6 terms, 4 x 4 sites at 140 mm pitch, FTB limit 55 um.
-  - C75: flip about x, 8 terms, 5 x 5 sites at 100 mm pitch, FTB limit 60 um, and a connection
-    (nominal 0.28 ohm; the 0.29 ohm limit is about 71 um of extra routed length).
+  - C75: flip about x, 8 terms, 5 x 5 sites at 100 mm pitch, FTB limit 60 um, and via
+    settings: 35 um vias on 65 um pads (capture margin 15 um; layer 1: 50 on 90 um, margin
+    20 um), 15 um pad copper, 25 um deep vias. C55 has none: its L2L limit judges each layer.
 - `panels.csv`: {summary.panels} panels in {summary.lots} lots; serial = lot + index.
 - `measurements.csv`: {summary.rows} rows (one per site), {summary.measurements} measurements,
   each a contiguous block of one panel/layer/side, sorted by `measured_at`, from

@@ -22,6 +22,8 @@ Three solves share that rank rule:
   all their right-hand sides by matrix products.
 - ``solve_group``, every other measurement: the orthogonalisation runs on all of them at once,
   right-hand sides included (``Orthogonal``).
+
+The fit guard (leverage of the check points, and the fallback it forces) is in ``_guard``.
 """
 
 from __future__ import annotations
@@ -31,6 +33,13 @@ from typing import Final, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
+from app.overlay._guard import (
+    LEVERAGE_MAX,
+    chosen_leverage,
+    cover_reason,
+    reach_leverage,
+    sites_box,
+)
 from app.overlay.model import FloatArray
 
 IntArray = NDArray[np.int64]
@@ -64,7 +73,8 @@ class Solution(NamedTuple):
 
     terms (g, 8) about the origin; choice (g,) index into ``MODELS``; notes per measurement;
     residual mean and sum of squares per axis (2, g); the site of the largest residual vector
-    and its squared length (g,). Residuals are reduced to these where they are made, so the
+    and its squared length (g,); the fitted model's largest leverage over the reach (g,).
+    Residuals are reduced to these where they are made, so the
     shared-layout solve works through a group block by block and never holds its residuals.
     """
 
@@ -75,6 +85,7 @@ class Solution(NamedTuple):
     sum_sq: FloatArray
     worst: IntArray
     worst_sq: FloatArray
+    leverage: FloatArray
 
 
 def summarise(
@@ -122,6 +133,7 @@ class Orthogonal:
     def __init__(self, u: FloatArray, v: FloatArray, k: int) -> None:
         g, n = u.shape
         self.k = k
+        self.n_sites = (g, n)
         # Larger of u, v first: for a 2x2 triangular factor [[a, b], [0, c]] with b^2 + c^2 <=
         # a^2, sigma_min >= c / sqrt(2), so the diagonal test tracks the singular values.
         self.swap = np.einsum("gn,gn->g", v, v) > np.einsum("gn,gn->g", u, u)
@@ -212,9 +224,17 @@ def rank_flags(orth: Orthogonal) -> dict[str, BoolArray]:
 
 
 def choose(
-    n: int, requested: str, flags: dict[str, BoolArray], g: int
+    n: int,
+    requested: str,
+    flags: dict[str, BoolArray],
+    g: int,
+    leverage: dict[str, FloatArray] | None = None,
 ) -> tuple[IntArray, list[str | None]]:
-    """Model used for each of g measurements of n sites (index into ``MODELS``) and notes."""
+    """Model used for each of g measurements of n sites (index into ``MODELS``) and notes.
+
+    ``leverage``, when given, applies the fit guard: a model whose largest leverage over the
+    reach is above ``LEVERAGE_MAX`` is not kept.
+    """
     choice = np.full(g, len(MODELS) - 1, dtype=np.int64)
     undecided = np.ones(g, dtype=bool)
     reasons: dict[int, list[str]] = {}
@@ -226,15 +246,27 @@ def choose(
         else:
             why = "sites are collinear" if name == "linear" else "sites do not fix the x*y terms"
             ok = flags[name]
-        choice[undecided & ok] = i
+        covered = np.ones(g, dtype=bool)
+        if leverage is not None and name in leverage:
+            covered = leverage[name] <= LEVERAGE_MAX
+        choice[undecided & ok & covered] = i
         failed = undecided & ~ok
+        thin = undecided & ok & ~covered
         if name == "trapezoid" and "linear" in flags:
-            # Collinear sites fail both; say so once, at the linear step.
+            # Collinear sites fail both; say so once, at the linear step. The same for cover:
+            # leverage only grows with terms, so a linear model that fails fails trapezoid too.
             reasons.update({j: [] for j in np.flatnonzero(failed & ~flags["linear"]).tolist()})
             failed &= flags["linear"]
+            if leverage is not None:
+                lin_thin = flags["linear"] & (leverage["linear"] > LEVERAGE_MAX)
+                reasons.update({j: [] for j in np.flatnonzero(thin & lin_thin).tolist()})
+                thin &= ~lin_thin
         for j in np.flatnonzero(failed).tolist():
             reasons.setdefault(j, []).append(why)
-        undecided &= ~ok
+        if leverage is not None:
+            for j in np.flatnonzero(thin).tolist():
+                reasons.setdefault(j, []).append(cover_reason(name, float(leverage[name][j])))
+        undecided &= ~(ok & covered)
     notes: list[str | None] = [None] * g
     no_dof = [n - N_BASIS[m] <= 0 for m in MODELS]
     for j in set(reasons) | set(np.flatnonzero(np.array(no_dof)[choice]).tolist()):
@@ -278,13 +310,34 @@ def _basis(u: FloatArray, v: FloatArray, k: int) -> FloatArray:
 # ----------------------------------------------------------------------------- one measurement
 
 
+def _decide(
+    x: FloatArray, y: FloatArray, requested: str, reach: FloatArray | None
+) -> tuple[Orthogonal, FloatArray, FloatArray, FloatArray, IntArray, list[str | None], FloatArray]:
+    """Rank rule and fit guard for layouts (g, n): the factor, the normalised sites u, v and
+    their frame, the model choice, notes and the chosen model's leverage over the reach (over
+    the sites' own box without one)."""
+    g, n = x.shape
+    u, v, frame = normalise(x, y)
+    orth = Orthogonal(u, v, k_max(n, requested))
+    box = sites_box(x, y) if reach is None else np.broadcast_to(reach, (g, 4))
+    leverage = reach_leverage(orth, frame, box)
+    guard = None if reach is None else leverage
+    choice, notes = choose(n, requested, rank_flags(orth), g, guard)
+    return orth, u, v, frame, choice, notes, chosen_leverage(leverage, choice)
+
+
 def solve_one(
-    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+    x: FloatArray,
+    y: FloatArray,
+    dx: FloatArray,
+    dy: FloatArray,
+    requested: str,
+    reach: FloatArray | None = None,
 ) -> Solution:
     """One measurement, sites (n,): the batched rank rule, an independent LAPACK solve."""
-    n = x.size
-    u, v, frame = normalise(x[np.newaxis], y[np.newaxis])
-    choice, notes = choose(n, requested, rank_flags(Orthogonal(u, v, k_max(n, requested))), 1)
+    _, u, v, frame, choice, notes, leverage = _decide(
+        x[np.newaxis], y[np.newaxis], requested, reach
+    )
     k = N_BASIS[MODELS[int(choice[0])]]
     design = _basis(u[0], v[0], k)
     d = np.stack([dx, dy], axis=-1)
@@ -292,7 +345,8 @@ def solve_one(
     coef = np.zeros((1, 4, 2))
     coef[0, :k, :] = b
     residual = (d - design @ b).T[:, np.newaxis, :]
-    return Solution(to_terms(coef, frame), choice, notes, *summarise(residual[0], residual[1]))
+    summary = summarise(residual[0], residual[1])
+    return Solution(to_terms(coef, frame), choice, notes, *summary, leverage)
 
 
 # ----------------------------------------------------------------------------- many measurements
@@ -341,15 +395,17 @@ def shared_layouts(x: FloatArray, y: FloatArray) -> tuple[IntArray, IntArray]:
 
 
 def _solve_batched(
-    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+    x: FloatArray,
+    y: FloatArray,
+    dx: FloatArray,
+    dy: FloatArray,
+    requested: str,
+    reach: FloatArray | None,
 ) -> Solution:
     """Measurements of sites (g, n), each with its own layout: one orthogonalisation for all."""
-    g, n = x.shape
-    u, v, frame = normalise(x, y)
-    orth = Orthogonal(u, v, k_max(n, requested))
-    choice, notes = choose(n, requested, rank_flags(orth), g)
+    orth, _, _, frame, choice, notes, leverage = _decide(x, y, requested, reach)
     coef, (rx, ry) = orth.solve([dx, dy], choice)
-    return Solution(to_terms(coef, frame), choice, notes, *summarise(rx, ry))
+    return Solution(to_terms(coef, frame), choice, notes, *summarise(rx, ry), leverage)
 
 
 def _solve_shared(
@@ -358,6 +414,7 @@ def _solve_shared(
     dx: FloatArray,
     dy: FloatArray,
     requested: str,
+    reach: FloatArray | None,
     layout: IntArray,
     reps: IntArray,
     out: Solution,
@@ -368,9 +425,7 @@ def _solve_shared(
     at once; writes their rows of ``out``.
     """
     g, n = x.shape
-    u, v, frame = normalise(x[reps], y[reps])
-    orth = Orthogonal(u, v, k_max(n, requested))
-    choice, notes = choose(n, requested, rank_flags(orth), reps.size)
+    _, u, v, frame, choice, notes, leverage = _decide(x[reps], y[reps], requested, reach)
     k_of = np.array([N_BASIS[m] for m in MODELS])[choice]
     # Pseudo-inverses by SVD, the factorisation lstsq uses in solve_one, stacked over the
     # layouts of each basis size; rows of d @ op_t are each measurement's coefficients.
@@ -419,6 +474,7 @@ def _solve_shared(
     at = layout[members]
     out.terms[members] = to_terms(coef[members], frame[at])
     out.choice[members] = choice[at]
+    out.leverage[members] = leverage[at]
     if groups[0] is None:
         out.notes[:] = [notes[0]] * g
     else:
@@ -427,13 +483,22 @@ def _solve_shared(
 
 
 def solve_group(
-    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, requested: str
+    x: FloatArray,
+    y: FloatArray,
+    dx: FloatArray,
+    dy: FloatArray,
+    requested: str,
+    reach: FloatArray | None = None,
 ) -> Solution:
-    """Measurements with the same site count n, arrays (g, n): shared layouts, then the rest."""
+    """Measurements with the same site count n, arrays (g, n): shared layouts, then the rest.
+
+    ``reach`` (4,), the box (x_lo, x_hi, y_lo, y_hi) in mm that the models must serve, applies
+    the fit guard to all of them; None fits without it.
+    """
     g = x.shape[0]
     layout, reps = shared_layouts(x, y)
     if reps.size == 0:
-        return _solve_batched(x, y, dx, dy, requested)
+        return _solve_batched(x, y, dx, dy, requested, reach)
     out = Solution(
         np.empty((g, 8)),
         np.empty(g, dtype=np.int64),
@@ -442,17 +507,19 @@ def solve_group(
         np.empty((2, g)),
         np.empty(g, dtype=np.int64),
         np.empty(g),
+        np.empty(g),
     )
-    _solve_shared(x, y, dx, dy, requested, layout, reps, out)
+    _solve_shared(x, y, dx, dy, requested, reach, layout, reps, out)
     rest = np.flatnonzero(layout < 0)
     if rest.size:
-        part = _solve_batched(x[rest], y[rest], dx[rest], dy[rest], requested)
+        part = _solve_batched(x[rest], y[rest], dx[rest], dy[rest], requested, reach)
         out.terms[rest] = part.terms
         out.choice[rest] = part.choice
         out.mean[:, rest] = part.mean
         out.sum_sq[:, rest] = part.sum_sq
         out.worst[rest] = part.worst
         out.worst_sq[rest] = part.worst_sq
+        out.leverage[rest] = part.leverage
         for j, note in zip(rest.tolist(), part.notes, strict=True):
             out.notes[j] = note
     return out

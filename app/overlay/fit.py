@@ -15,11 +15,18 @@ panel centre) live in ``_lsq``. ``fit_measurement`` solves one measurement with
 ``numpy.linalg.lstsq``; ``fit_many`` groups measurements by site count, and within a group lets
 measurements with the same site layout share one solve operator and orthogonalises the others
 all at once. Both apply the same rank rule, so they pick the same model and agree to round-off.
+
+The fit guard: given a reach (the box around the product's check points, ``reach_of``), a model
+is kept only where its prediction error anywhere in the reach stays within the noise of one
+site, that is where its leverage h = z^T (B^T B)^-1 z is at most 1; otherwise the fit falls back
+to fewer terms and says so in ``note``. The rule and its grounds are in ``_lsq``'s docstring.
+Every fit reports ``leverage``, the largest h of its model over the reach (over the sites' own
+box when no reach is given): sigma^2 * leverage bounds the variance of the model anywhere in the
+reach, which is what the L2L check adds for the fit's own uncertainty.
 """
 
 from __future__ import annotations
 
-import gc
 from collections import deque
 from collections.abc import Iterable
 from dataclasses import dataclass, fields
@@ -30,9 +37,17 @@ import numpy as np
 from numpy.typing import NDArray
 
 from app.overlay import _lsq
+from app.overlay._guard import check_reach, reach_of
 from app.overlay.errors import OverlayInputError
 from app.overlay.model import PER_MM_TO_MICRO, TERM_NAMES, FloatArray
 
+__all__ = ["FIGURES", "OverlayFit", "fit_many", "fit_measurement", "reach_of"]
+
+#: Order of ``OverlayFit.figures``.
+FIGURES: Final = (
+    "mean_x_um", "mean_y_um", "sigma_x_um", "sigma_y_um", "m3s_x_um", "m3s_y_um",
+    "max_residual_um", "max_residual_x_mm", "max_residual_y_mm", "leverage",
+)
 #: Names of the fitted terms per model.
 _FITTED: Final = {
     "trapezoid": TERM_NAMES,
@@ -60,13 +75,18 @@ class OverlayFit:
         Why the fit fell back to fewer terms, or why sigma is 0; None when neither happened.
     n_sites : int
         Number of sites.
-    mean_um, sigma_um, m3s_um : tuple of float
-        Residual mean, sigma (n - p degrees of freedom, p terms per axis; 0.0 when n - p <= 0)
-        and |mean| + 3 sigma, for x and y.
-    max_residual_um : float
-        Length of the largest residual vector.
-    max_residual_at_mm : tuple of float
-        Site (x, y) of that residual.
+    figures : array, shape (10,)
+        The residual statistics and the leverage in ``FIGURES`` order, read through the
+        properties below. One read-only row of an array per fit, not five Python containers:
+        numpy arrays are not followed by the garbage collector, so a batch of ten thousand fits
+        makes a fifth of the tracked objects it would otherwise, and the collector runs that
+        much less often while they are built.
+
+    Properties ``mean_um``, ``sigma_um``, ``m3s_um`` (x, y): residual mean, sigma (n - p
+    degrees of freedom, p terms per axis; 0.0 when n - p <= 0) and |mean| + 3 sigma.
+    ``max_residual_um`` and ``max_residual_at_mm``: the largest residual vector and its site.
+    ``leverage``: the fitted model's largest leverage over the reach (the sites' box when none
+    was given); the model's variance there is at most ``leverage`` times the site variance.
     """
 
     terms: FloatArray
@@ -75,11 +95,37 @@ class OverlayFit:
     requested: str
     note: str | None
     n_sites: int
-    mean_um: tuple[float, float]
-    sigma_um: tuple[float, float]
-    m3s_um: tuple[float, float]
-    max_residual_um: float
-    max_residual_at_mm: tuple[float, float]
+    figures: FloatArray
+
+    @property
+    def mean_um(self) -> tuple[float, float]:
+        """Residual mean (x, y), um."""
+        return (float(self.figures[0]), float(self.figures[1]))
+
+    @property
+    def sigma_um(self) -> tuple[float, float]:
+        """Residual sigma (x, y), n - p degrees of freedom, um."""
+        return (float(self.figures[2]), float(self.figures[3]))
+
+    @property
+    def m3s_um(self) -> tuple[float, float]:
+        """|mean| + 3 sigma (x, y), um."""
+        return (float(self.figures[4]), float(self.figures[5]))
+
+    @property
+    def max_residual_um(self) -> float:
+        """Length of the largest residual vector, um."""
+        return float(self.figures[6])
+
+    @property
+    def max_residual_at_mm(self) -> tuple[float, float]:
+        """Site (x, y) of the largest residual vector, mm."""
+        return (float(self.figures[7]), float(self.figures[8]))
+
+    @property
+    def leverage(self) -> float:
+        """Largest leverage of the fitted model over the reach (see the class docstring)."""
+        return float(self.figures[9])
 
     @property
     def scale_ppm(self) -> tuple[float, float]:
@@ -136,6 +182,7 @@ class OverlayFit:
             "m3s_y_um": self.m3s_um[1],
             "max_residual_um": self.max_residual_um,
             "max_residual_at_mm": list(self.max_residual_at_mm),
+            "leverage": self.leverage,
         }
 
 
@@ -190,7 +237,7 @@ def _results(
     x: FloatArray, y: FloatArray, solution: _lsq.Solution, requested: str
 ) -> list[OverlayFit]:
     """Residual statistics and result objects for g measurements of sites x, y (g, n)."""
-    terms, choice, notes, mean, sum_sq, worst, worst_sq = solution
+    terms, choice, notes, mean, sum_sq, worst, worst_sq, leverage = solution
     g, n = x.shape
     dof = n - np.array([_lsq.N_BASIS[m] for m in _lsq.MODELS])[choice]
     # sigma with n - p degrees of freedom; 0 (and a note) when there are none.
@@ -199,24 +246,16 @@ def _results(
     terms += 0.0  # -0.0 + 0.0 is +0.0: no negative zeros in reports
     terms.setflags(write=False)  # results are frozen; each fit holds a row view
     rows = np.arange(g)
-    at_x, at_y = x[rows, worst], y[rows, worst]
-    # The collector would run every few hundred of the ~5 g containers made below, and now and
-    # then pass over everything alive: a fifth to a third of this step's time, spent finding
-    # that fresh result objects are not garbage. The previous state is restored.
-    collecting = gc.isenabled()
-    gc.disable()
-    try:
-        # Python floats and tuples in bulk, once per batch: per-element numpy scalar access is
-        # the slow part here.
-        means, sigmas, m3ss = (list(zip(*a.tolist(), strict=True)) for a in (mean, sigma, m3s))
-        ats = list(zip(at_x.tolist(), at_y.tolist(), strict=True))
-        models = [_lsq.MODELS[i] for i in choice.tolist()]
-        fitted = [_FITTED[m] for m in models]
-        columns = (terms, fitted, models, repeat(requested), notes, repeat(n))
-        return _make_fits(g, (*columns, means, sigmas, m3ss, np.sqrt(worst_sq).tolist(), ats))
-    finally:
-        if collecting:
-            gc.enable()
+    figures = np.empty((g, len(FIGURES)))
+    figures[:, 0:2], figures[:, 2:4], figures[:, 4:6] = mean.T, sigma.T, m3s.T
+    figures[:, 6] = np.sqrt(worst_sq)
+    figures[:, 7], figures[:, 8] = x[rows, worst], y[rows, worst]
+    figures[:, 9] = leverage
+    figures += 0.0
+    figures.setflags(write=False)
+    models = [_lsq.MODELS[i] for i in choice.tolist()]
+    fitted = [_FITTED[m] for m in models]
+    return _make_fits(g, (terms, fitted, models, repeat(requested), notes, repeat(n), figures))
 
 
 def _make_fits(g: int, columns: Iterable[Iterable[object]]) -> list[OverlayFit]:
@@ -232,7 +271,13 @@ def _make_fits(g: int, columns: Iterable[Iterable[object]]) -> list[OverlayFit]:
 
 
 def fit_measurement(
-    x: FloatArray, y: FloatArray, dx: FloatArray, dy: FloatArray, *, trapezoid: bool = False
+    x: FloatArray,
+    y: FloatArray,
+    dx: FloatArray,
+    dy: FloatArray,
+    *,
+    trapezoid: bool = False,
+    reach_mm: FloatArray | None = None,
 ) -> OverlayFit:
     """Fit the overlay model to one measurement by ordinary least squares.
 
@@ -244,24 +289,29 @@ def fit_measurement(
         Overlay displacements in um.
     trapezoid : bool
         Ask for the 8-term model; otherwise the 6-term linear model.
+    reach_mm : array, shape (4,), or None
+        Box (x_lo, x_hi, y_lo, y_hi), mm, where the model will be used (``reach_of`` the
+        check points). Applies the fit guard; None fits without it.
 
     Returns
     -------
     OverlayFit
         Falls back to fewer terms (linear, then translation) when the sites cannot determine
-        the requested ones, and says why in ``note``.
+        the requested ones, or cover too little of the reach for them, and says why in
+        ``note``.
 
     Raises
     ------
     OverlayInputError
-        Non-finite values, mismatched lengths or no sites.
+        Non-finite values, mismatched lengths, no sites or a bad reach.
     """
     x, y, dx, dy = _check_sites(x, y, dx, dy)
+    reach = check_reach(reach_mm, None)
     n = x.size
     if n == 0:
         raise OverlayInputError("a measurement needs at least one site, got none")
     requested = "trapezoid" if trapezoid else "linear"
-    solution = _lsq.solve_one(x, y, dx, dy, requested)
+    solution = _lsq.solve_one(x, y, dx, dy, requested, reach)
     return _results(x[np.newaxis], y[np.newaxis], solution, requested)[0]
 
 
@@ -273,6 +323,7 @@ def fit_many(
     counts: NDArray[np.integer] | list[int],
     *,
     trapezoid: bool = False,
+    reach_mm: FloatArray | None = None,
 ) -> list[OverlayFit]:
     """Fit many measurements at once; same results as ``fit_measurement`` on each.
 
@@ -284,6 +335,9 @@ def fit_many(
         Number of consecutive sites belonging to each measurement; sums to N, each >= 1.
     trapezoid : bool
         Ask for the 8-term model; otherwise the 6-term linear model.
+    reach_mm : array, shape (4,) or (m, 4), or None
+        The fit guard's box for all measurements, or one per measurement (see
+        ``fit_measurement``).
 
     Returns
     -------
@@ -293,25 +347,36 @@ def fit_many(
     Raises
     ------
     OverlayInputError
-        Non-finite values, mismatched lengths, or counts that are not positive integers summing
-        to N.
+        Non-finite values, mismatched lengths, counts that are not positive integers summing
+        to N, or a bad reach.
     """
     x, y, dx, dy = _check_sites(x, y, dx, dy)
     c = _check_counts(counts, x.size)
+    reach = check_reach(reach_mm, c.size)
     requested = "trapezoid" if trapezoid else "linear"
     if c.size == 0:
         return []
-    if np.all(c == c[0]):  # one site count: a reshape, no gathering
+    # Measurements are solved in groups of one site count and one reach.
+    if reach is None or reach.ndim == 1:
+        boxes: list[FloatArray | None] = [reach]
+        box_of = np.zeros(c.size, dtype=np.int64)
+    else:
+        unique, box_of = np.unique(reach, axis=0, return_inverse=True)
+        boxes = list(unique)
+        box_of = box_of.reshape(-1)
+    if len(boxes) == 1 and np.all(c == c[0]):  # one site count: a reshape, no gathering
         shape = (c.size, int(c[0]))
         xs, ys, dxs, dys = (a.reshape(shape) for a in (x, y, dx, dy))
-        return _results(xs, ys, _lsq.solve_group(xs, ys, dxs, dys, requested), requested)
+        solution = _lsq.solve_group(xs, ys, dxs, dys, requested, boxes[0])
+        return _results(xs, ys, solution, requested)
     starts = np.concatenate([[0], np.cumsum(c)[:-1]])
     out: list[OverlayFit | None] = [None] * c.size
-    for n in np.unique(c).tolist():
-        members = np.flatnonzero(c == n)
-        idx = starts[members, np.newaxis] + np.arange(n)
-        xs, ys = x[idx], y[idx]
-        fits = _results(xs, ys, _lsq.solve_group(xs, ys, dx[idx], dy[idx], requested), requested)
-        for j, f in zip(members.tolist(), fits, strict=True):
-            out[j] = f
+    for b, box in enumerate(boxes):
+        for n in np.unique(c[box_of == b]).tolist():
+            members = np.flatnonzero((c == n) & (box_of == b))
+            idx = starts[members, np.newaxis] + np.arange(n)
+            xs, ys = x[idx], y[idx]
+            solution = _lsq.solve_group(xs, ys, dx[idx], dy[idx], requested, box)
+            for j, f in zip(members.tolist(), _results(xs, ys, solution, requested), strict=True):
+                out[j] = f
     return [f for f in out if f is not None]

@@ -8,13 +8,27 @@ fires, so that an engineer sees all causes (a side's drift and an L2L over limit
 rule                     level       fires when
 =======================  ==========  =====================================================
 ftb_over_limit           over_limit  current worst FTB > FTB limit
-l2l_over_limit           over_limit  any layer's worst L2L > L2L limit (either side)
-resistance_over_limit    over_limit  connection resistance > its limit (when both given)
+via_off_pad              over_limit  a layer's fitted L2L offset passes its vias' capture
+                                     margin by more than 2 fit standard errors (products
+                                     with via settings)
+l2l_over_limit           over_limit  a layer's worst L2L passes the L2L limit by more than 2
+                                     fit standard errors (products without via settings)
 p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk
+via_miss_at_risk         at_risk     P(a via misses part of its pad) >= p_at_risk somewhere
 p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch
+via_miss_watch           watch       P(a via misses part of its pad) >= p_watch somewhere
 ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
 clear                    clear       none of the above
 =======================  ==========  =====================================================
+
+L2L and the fit's own uncertainty: a layer's offset at the check points is its fitted model,
+known only to the fit's standard error there (``capture.InterfaceCapture.model_se_um``, from the
+fit guard's leverage). A layer is over a limit only when the offset passes it by more than
+``SE_FACTOR`` = 2 of those standard errors: under a normal error that is about 98 % one-sided
+confidence that the offset really is over, so a noisy fit alone does not put a panel over limit.
+With via settings the capture margin m = (D_pad - D_via) / 2 judges L2L instead of the product's
+L2L limit, and the miss probability P(|d| > m) (``capture``) gives the watch and at-risk levels;
+the stacked-via extra resistance is a figure in the stack, never a rule.
 
 Directions are in the panel frame (x right, y up, looking at side A): "+x", "-y", or an angle
 counter-clockwise from +x when the drift is more than 10 degrees off an axis. A side's drift is
@@ -30,6 +44,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Final
 
+from app.overlay.capture import InterfaceCapture
 from app.overlay.errors import OverlayInputError
 from app.overlay.forecast import Forecast, SideTrend
 from app.overlay.model import FloatArray
@@ -38,13 +53,18 @@ RISK_LEVELS: Final = ("clear", "watch", "at_risk", "over_limit")
 #: (rule, level), most severe first; the order in which reasons are listed.
 RULES: Final = (
     ("ftb_over_limit", "over_limit"),
+    ("via_off_pad", "over_limit"),
     ("l2l_over_limit", "over_limit"),
-    ("resistance_over_limit", "over_limit"),
     ("p_exceed_at_risk", "at_risk"),
+    ("via_miss_at_risk", "at_risk"),
     ("p_exceed_watch", "watch"),
+    ("via_miss_watch", "watch"),
     ("ftb_near_limit", "watch"),
     ("clear", "clear"),
 )
+#: A layer is over a limit when its offset passes it by more than this many of the fit's own
+#: standard errors (about 98 % one-sided confidence under a normal error).
+SE_FACTOR: Final = 2.0
 # A drift within this many degrees of an axis is reported as that axis.
 _AXIS_SNAP_DEG: Final = 10.0
 # Below this a side's mean translation per layer is reported as no net drift.
@@ -76,8 +96,6 @@ class RiskThresholds:
         P(exceed) from which a panel is watched or at risk; 0 < p_watch <= p_at_risk <= 1.
     watch_fraction : float
         Current FTB from this share of the limit is watched (0.70, common practice).
-    resistance_limit_ohm : float or None
-        Limit of the representative connection's resistance, when the product has one.
     """
 
     ftb_limit_um: float
@@ -85,7 +103,6 @@ class RiskThresholds:
     p_watch: float = 0.05
     p_at_risk: float = 0.20
     watch_fraction: float = 0.70
-    resistance_limit_ohm: float | None = None
 
     def __post_init__(self) -> None:
         _finite_positive("ftb_limit_um", self.ftb_limit_um)
@@ -98,8 +115,6 @@ class RiskThresholds:
             raise OverlayInputError(
                 f"watch_fraction must be in (0, 1], got {self.watch_fraction!r}"
             )
-        if self.resistance_limit_ohm is not None:
-            _finite_positive("resistance_limit_ohm", self.resistance_limit_ohm)
 
 
 @dataclass(frozen=True)
@@ -211,6 +226,68 @@ def _forecast_reasons(
     return reasons
 
 
+def _l2l_limit_reasons(
+    rows: Sequence[tuple[str, int, float, tuple[float, float] | None, float]], limit: float
+) -> list[str]:
+    """L2L against the product's limit: (side, layer, worst, where, fit standard error)."""
+    out = []
+    for side, layer, value, at, se in rows:
+        if not math.isfinite(value):
+            raise OverlayInputError(f"side {side} layer {layer}: L2L worst is not finite")
+        if value - SE_FACTOR * se > limit:
+            known = f" (fit standard error {se:.1f} um)" if se > 0.0 else ""
+            out.append(
+                f"Side {side} layer {layer}: L2L worst {value:.1f} um{_at(at)} exceeds the "
+                f"{limit:g} um limit by {value - limit:.1f} um{known}."
+            )
+    return out
+
+
+def _landing(c: InterfaceCapture) -> str:
+    ratio = c.resistance_ratio
+    if ratio is None or ratio == 1.0:
+        return ""
+    if math.isinf(ratio):
+        return "; the via bottom is off its pad entirely (an open)"
+    share = c.overlap_fraction or 0.0
+    return (
+        f"; {share:.0%} of the via bottom stays on its pad, about {ratio:.1f} x the contact "
+        "resistance (first-order: via area over overlap)"
+    )
+
+
+def _capture_reasons(
+    interfaces: Sequence[InterfaceCapture], thresholds: RiskThresholds
+) -> dict[str, list[str]]:
+    """Reasons of the via rules, by rule, for interfaces with a capture margin."""
+    fired: dict[str, list[str]] = {}
+    for c in interfaces:
+        if c.margin_um is None or c.p_miss is None or c.overhang_um is None:
+            continue
+        where = f"side {c.side}"
+        if c.overhang_um - SE_FACTOR * c.model_se_um > 0.0:
+            fired.setdefault("via_off_pad", []).append(
+                f"Via on layer {c.layer} {where} can miss its pad by {c.overhang_um:.1f} um"
+                f"{_at(c.worst_at_mm)}: L2L offset {c.worst_um:.1f} um against a capture "
+                f"margin of {c.margin_um:.1f} um (fit standard error {c.model_se_um:.1f} um)"
+                f"{_landing(c)}."
+            )
+            continue
+        for rule, level in (
+            ("via_miss_at_risk", thresholds.p_at_risk),
+            ("via_miss_watch", thresholds.p_watch),
+        ):
+            if c.p_miss >= level:
+                fired.setdefault(rule, []).append(
+                    f"Vias on layer {c.layer} {where} miss part of their pad with probability "
+                    f"{c.p_miss:.2f}{_at(c.p_miss_at_mm)} (threshold {level:.2f}): L2L offset "
+                    f"up to {c.worst_um:.1f} um against a capture margin of "
+                    f"{c.margin_um:.1f} um."
+                )
+                break
+    return fired
+
+
 def _at(point: Sequence[float] | FloatArray | None) -> str:
     if point is None:
         return ""
@@ -222,11 +299,11 @@ def assess(
     *,
     ftb_worst_um: float,
     ftb_worst_at_mm: Sequence[float] | FloatArray | None,
-    l2l_worst_a_um: Mapping[int, float],
-    l2l_worst_b_um: Mapping[int, float],
     forecast: Forecast | None,
     thresholds: RiskThresholds,
-    resistance_ohm: float | None = None,
+    l2l_worst_a_um: Mapping[int, float] | None = None,
+    l2l_worst_b_um: Mapping[int, float] | None = None,
+    interfaces: Sequence[InterfaceCapture] | None = None,
 ) -> RiskAssessment:
     """Risk level of a panel, the deciding rule and the reasons for every rule that fires.
 
@@ -236,13 +313,16 @@ def assess(
         Current worst FTB length over the check points, um.
     ftb_worst_at_mm : sequence of 2 floats, or None
         Where it is (panel frame, mm).
-    l2l_worst_a_um, l2l_worst_b_um : mapping of int to float
-        Worst L2L length per observed layer (1-based) of each side, um.
     forecast : Forecast or None
         Forecast of the final FTB; None when there is none.
     thresholds : RiskThresholds
-    resistance_ohm : float or None
-        Resistance of the product's representative connection, when computed.
+    l2l_worst_a_um, l2l_worst_b_um : mapping of int to float, optional
+        Worst L2L length per observed layer (1-based) of each side, um, judged against the L2L
+        limit as exact figures. Used only without ``interfaces``.
+    interfaces : sequence of InterfaceCapture, optional
+        Per side and layer, the L2L offset with the fit's standard error and, for a product
+        with via settings, its capture figures (``capture.interface_capture``). With a capture
+        margin the via rules judge the layer; without one, the L2L limit does.
 
     Returns
     -------
@@ -260,29 +340,24 @@ def assess(
             f"Current FTB {ftb:.1f} um{where} exceeds the {limit:g} um limit by "
             f"{ftb - limit:.1f} um."
         ]
-    l2l: list[str] = []
-    for side, worst in (("A", l2l_worst_a_um), ("B", l2l_worst_b_um)):
-        for layer in sorted(worst):
-            value = float(worst[layer])
-            if not math.isfinite(value):
-                raise OverlayInputError(f"side {side} layer {layer}: L2L worst is not finite")
-            if value > thresholds.l2l_limit_um:
-                l2l.append(
-                    f"Side {side} layer {layer}: L2L worst {value:.1f} um exceeds the "
-                    f"{thresholds.l2l_limit_um:g} um limit by "
-                    f"{value - thresholds.l2l_limit_um:.1f} um."
-                )
+    rows: list[tuple[str, int, float, tuple[float, float] | None, float]]
+    if interfaces is None:
+        rows = [
+            (side, layer, float(worst[layer]), None, 0.0)
+            for side, worst in (("A", l2l_worst_a_um or {}), ("B", l2l_worst_b_um or {}))
+            for layer in sorted(worst)
+        ]
+    else:
+        ordered_faces = sorted(interfaces, key=lambda c: (c.side, c.layer))
+        rows = [
+            (c.side, c.layer, c.worst_um, c.worst_at_mm, c.model_se_um)
+            for c in ordered_faces
+            if c.margin_um is None
+        ]
+        fired.update(_capture_reasons(ordered_faces, thresholds))
+    l2l = _l2l_limit_reasons(rows, thresholds.l2l_limit_um)
     if l2l:
         fired["l2l_over_limit"] = l2l
-    r_limit = thresholds.resistance_limit_ohm
-    if resistance_ohm is not None:
-        if not math.isfinite(resistance_ohm):
-            raise OverlayInputError(f"resistance_ohm must be finite, got {resistance_ohm!r}")
-        if r_limit is not None and resistance_ohm > r_limit:
-            fired["resistance_over_limit"] = [
-                f"Connection resistance {resistance_ohm:.4g} ohm exceeds the {r_limit:.4g} ohm "
-                f"limit (with the current FTB of {ftb:.1f} um added to its routed length)."
-            ]
     if forecast is not None:
         p = forecast.p_exceed
         if p >= thresholds.p_at_risk:

@@ -71,6 +71,11 @@ class FitRead(BaseModel):
     m3s_y_um: float
     max_residual_um: float
     max_residual_at_mm: tuple[float, float]
+    leverage: float | None = Field(
+        default=None,
+        description="Largest leverage of the fitted model over the product's check points: "
+        "the model's variance there is at most this times the residual variance (fit guard).",
+    )
     frame: Literal["panel"] = "panel"
 
 

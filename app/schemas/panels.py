@@ -100,6 +100,42 @@ class StackLayerRead(BaseModel):
         description="This side's layers 1..layer summed at the worst check point (worst_at_mm): "
         "where the side's top layer sits relative to the core there, panel frame."
     )
+    fit_se_um: float | None = Field(
+        default=None,
+        description="Bound on the fit's own standard error at the check points (fit guard).",
+    )
+    capture_margin_um: float | None = Field(
+        default=None, description="(pad - via) / 2 of this layer's vias; with via settings."
+    )
+    p_miss: float | None = Field(
+        default=None,
+        description="Largest probability over the check points that a via misses part of its "
+        "pad: P(|L2L| > capture margin).",
+    )
+    p_miss_at_mm: tuple[float, float] | None = None
+    overhang_um: float | None = Field(
+        default=None,
+        description="Worst L2L minus the capture margin: > 0, the via runs past its pad edge.",
+    )
+    overlap_fraction: float | None = Field(
+        default=None, description="Share of the via bottom on its pad at the worst point."
+    )
+    contact_resistance_ratio: float | None = Field(
+        default=None,
+        description="Via area over overlap area there (first-order); null when the via is off "
+        "its pad entirely (overlap_fraction 0) or there are no via settings.",
+    )
+
+
+class StackedViaRead(BaseModel):
+    """Extra resistance of a stacked-via chain from its lateral shifts: a figure, never a
+    reason to hold (it is small beside the spread of plated copper)."""
+
+    lateral_um: float = Field(description="sum over interfaces of |L2L| at the worst point.")
+    at_mm: tuple[float, float]
+    extra_ohm: float = Field(description="rho * lateral / (pad width * copper thickness).")
+    chain_ohm: float | None = Field(description="The chain's own resistance (needs via depth).")
+    relative: float | None = Field(description="extra_ohm / chain_ohm.")
 
 
 class StackRead(BaseModel):
@@ -110,3 +146,4 @@ class StackRead(BaseModel):
     residual_sigma_um: tuple[float, float]
     linear_worst_case_um: float = Field(description="Planning figure, not the estimate.")
     rss_um: float = Field(description="Planning figure, not the estimate.")
+    stacked_via: StackedViaRead | None = None

@@ -9,21 +9,69 @@ from app.overlay.resistance import RHO_COPPER_20C
 from app.schemas.text import Identifier, single_line
 
 
-class Connection(BaseModel):
-    """A representative routed connection, used to turn FTB into extra resistance."""
+class ViaLayer(BaseModel):
+    """Via and pad diameters of one layer whose vias differ from the product's usual pair."""
 
     model_config = ConfigDict(extra="forbid")
 
-    width_um: float = Field(gt=0)
-    thickness_um: float = Field(gt=0)
-    length_um: float = Field(gt=0)
+    layer: int = Field(ge=1, le=40, description="Layer k: its vias land on layer k-1's pads.")
+    via_diameter_um: float = Field(gt=0, le=1000)
+    pad_diameter_um: float = Field(gt=0, le=2000)
+
+    @model_validator(mode="after")
+    def _check(self) -> ViaLayer:
+        _pad_over_via(self.via_diameter_um, self.pad_diameter_um)
+        return self
+
+
+def _pad_over_via(via: float, pad: float) -> None:
+    if pad <= via:
+        raise ValueError(
+            f"pad_diameter_um ({pad:g}) must be larger than via_diameter_um ({via:g}): the "
+            "capture margin is (pad - via) / 2"
+        )
+
+
+class Vias(BaseModel):
+    """Microvias and their landing pads: the capture margin m = (D_pad - D_via) / 2 judges each
+    layer's L2L offset, and the copper figures give the stacked-via extra resistance."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    via_diameter_um: float = Field(gt=0, le=1000, description="Usual via diameter (bottom).")
+    pad_diameter_um: float = Field(gt=0, le=2000, description="Usual landing pad diameter.")
+    layers: list[ViaLayer] = Field(
+        default_factory=list, max_length=40, description="Layers whose pair differs."
+    )
+    copper_thickness_um: float | None = Field(
+        default=None, gt=0, le=200,
+        description="Pad copper thickness; without it no stacked-via resistance figure.",
+    )
+    pad_width_um: float | None = Field(
+        default=None, gt=0, le=2000,
+        description="Width of copper the lateral current crosses; the pad diameter if unset.",
+    )
+    via_depth_um: float | None = Field(
+        default=None, gt=0, le=500,
+        description="Via depth (dielectric thickness); gives the chain's own resistance, so "
+        "that the extra resistance can be stated as a share of it.",
+    )
     resistivity_ohm_m: float = Field(
         default=RHO_COPPER_20C,
         gt=0,
+        le=1e-6,
         description="Copper at 20 C (OpenStax University Physics vol. 2); plated copper runs "
         "somewhat higher.",
     )
-    resistance_limit_ohm: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _check(self) -> Vias:
+        _pad_over_via(self.via_diameter_um, self.pad_diameter_um)
+        seen = [v.layer for v in self.layers]
+        twice = sorted({k for k in seen if seen.count(k) > 1})
+        if twice:
+            raise ValueError(f"layers lists layer {twice[0]} more than once")
+        return self
 
 
 class ProductCreate(BaseModel):
@@ -46,12 +94,22 @@ class ProductCreate(BaseModel):
     )
     p_watch: float = Field(default=0.05, gt=0, lt=1)
     p_at_risk: float = Field(default=0.20, gt=0, lt=1)
-    connection: Connection | None = None
+    vias: Vias | None = Field(
+        default=None,
+        description="Via and pad diameters; without them each layer's L2L is judged against "
+        "l2l_limit_um alone.",
+    )
 
     @model_validator(mode="after")
     def _check(self) -> ProductCreate:
         if self.p_watch > self.p_at_risk:
             raise ValueError("p_watch must not exceed p_at_risk")
+        for i, v in enumerate(self.vias.layers if self.vias else []):
+            if v.layer > self.layers_per_side:
+                raise ValueError(
+                    f"vias.layers[{i}].layer is {v.layer}, beyond layers_per_side "
+                    f"({self.layers_per_side})"
+                )
         for i, (x, y) in enumerate(self.check_points_mm or []):
             if abs(x) > self.panel_width_mm / 2 or abs(y) > self.panel_height_mm / 2:
                 raise ValueError(f"check_points_mm[{i}] = ({x}, {y}) lies outside the panel")
@@ -71,5 +129,5 @@ class ProductRead(BaseModel):
     check_points_mm: list[tuple[float, float]]
     p_watch: float
     p_at_risk: float
-    connection: Connection | None
+    vias: Vias | None
     created_at: datetime

@@ -30,7 +30,7 @@ from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import FieldError, InvalidInput
-from app.overlay.fit import OverlayFit, fit_many
+from app.overlay.fit import OverlayFit, fit_many, reach_of
 from app.overlay.frames import mirror_sites
 from app.schemas.text import control_problem
 from app.services import checks, holds, state
@@ -38,6 +38,7 @@ from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.checks import PanelFacts
 from app.services.history import Histories, product_history
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
+from app.services.products import check_points
 from app.store import bulk, sitepack
 from app.store.tables import Fit, Measurement, Panel, PanelState, Product, SiteSet, utcnow
 
@@ -115,8 +116,10 @@ def _to_panel_frame(batch: MeasurementBatch, products: list[Product]) -> np.ndar
 
 
 def _fit(sites: np.ndarray, counts: np.ndarray, products: list[Product]) -> list[OverlayFit]:
-    """Fits of every measurement, vectorised over those that share a model."""
+    """Fits of every measurement, vectorised over those that share a model; each fit is guarded
+    over the reach of its product's check points (``app.overlay.fit``)."""
     trapezoid = np.array([p.model_terms == 8 for p in products], dtype=bool)
+    reaches = {p.id: reach_of(check_points(p)) for p in {p.id: p for p in products}.values()}
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
     fits: list[Any] = [None] * len(counts)
     for flag in (False, True):
@@ -125,8 +128,9 @@ def _fit(sites: np.ndarray, counts: np.ndarray, products: list[Product]) -> list
             continue
         rows = np.concatenate([np.arange(starts[i], starts[i] + counts[i]) for i in idx])
         part = sites[rows]
+        reach = np.array([reaches[products[i].id] for i in idx])
         for i, f in zip(idx, fit_many(part[:, 0], part[:, 1], part[:, 2], part[:, 3],
-                                      counts[idx], trapezoid=flag), strict=True):
+                                      counts[idx], trapezoid=flag, reach_mm=reach), strict=True):
             fits[i] = f
     return fits
 
@@ -141,7 +145,8 @@ def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, state.Layers
             layers[serial][batch.side[j]][int(batch.layer[j])] = state.CurrentLayer(
                 measurement_id=plan.ids[j], tool=batch.tool[j], measured_at=plan.times[j],
                 model=fit.model, note=fit.note, terms=np.asarray(fit.terms, dtype=np.float64),
-                sigma_um=(float(fit.sigma_um[0]), float(fit.sigma_um[1])))
+                sigma_um=(float(fit.sigma_um[0]), float(fit.sigma_um[1])),
+                leverage=float(fit.leverage))
     first = {s: j for j, s in reversed(list(enumerate(batch.panel)))}
     for serial in wanted:
         product = plan.products[first[serial]]
@@ -197,6 +202,7 @@ def _fit_row(serial: str, measurement_id: uuid.UUID, fit: OverlayFit) -> dict[st
         "max_residual_um": fit.max_residual_um,
         "max_residual_x_mm": fit.max_residual_at_mm[0],
         "max_residual_y_mm": fit.max_residual_at_mm[1],
+        "leverage": fit.leverage,
     }
 
 

@@ -26,6 +26,7 @@ from app.services import audit, state
 from app.services import cursor as cursors
 from app.services.lifecycle import PanelStatus
 from app.services.products import get_by_code_or_raise
+from app.store.stored import StoredCapture
 from app.store.tables import Lot, Panel, PanelState, Product, utcnow
 from app.store.upsert import insert_ignore
 
@@ -187,6 +188,7 @@ def stack(*, db: Database, serial: str) -> StackRead:
         layers = state.current_layers(session, serial)
         summary = st.stack if st is not None else None
         worst_at = (st.ftb_worst_x_mm, st.ftb_worst_y_mm) if st is not None else (0.0, 0.0)
+        faces = {(c.side, c.layer): c for c in summary.capture} if summary else {}
         out: list[StackLayerRead] = []
         for side in ("A", "B"):
             l2l = getattr(summary.l2l_worst_um, side) if summary else {}
@@ -220,6 +222,7 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     cumulative_ftb_worst_um=_cumulative_at(summary.cumulative_worst_um, k)
                     if summary else 0.0,
                     side_position_um=(float(position[0]), float(position[1])),
+                    **_capture_read(faces.get((side, k))),
                 ))
         return StackRead(
             serial=panel.serial,
@@ -228,7 +231,21 @@ def stack(*, db: Database, serial: str) -> StackRead:
             residual_sigma_um=summary.residual_sigma_um if summary else (0.0, 0.0),
             linear_worst_case_um=summary.linear_worst_case_um if summary else 0.0,
             rss_um=summary.rss_um if summary else 0.0,
+            stacked_via=summary.stacked_via.model_dump() if summary and summary.stacked_via
+            else None,
         )
+
+
+def _capture_read(face: StoredCapture | None) -> dict[str, Any]:
+    """StackLayerRead's capture fields from the stored interface figures."""
+    if face is None:
+        return {}
+    return {
+        "fit_se_um": face.model_se_um, "capture_margin_um": face.margin_um,
+        "p_miss": face.p_miss, "p_miss_at_mm": face.p_miss_at_mm,
+        "overhang_um": face.overhang_um, "overlap_fraction": face.overlap_fraction,
+        "contact_resistance_ratio": face.resistance_ratio,
+    }
 
 
 def _cumulative_at(cumulative: list[float], k: int) -> float:

@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, NotFound
+from app.overlay.capture import ViaGeometry
 from app.overlay.stack import default_check_points
-from app.schemas.products import Connection, ProductCreate, ProductRead
+from app.schemas.products import ProductCreate, ProductRead, Vias
 from app.services import audit
 from app.store.tables import Product, utcnow
 from app.store.upsert import insert_ignore
@@ -29,8 +32,44 @@ def to_read(product: Product) -> ProductRead:
         check_points_mm=[(float(x), float(y)) for x, y in product.check_points_mm],
         p_watch=product.p_watch,
         p_at_risk=product.p_at_risk,
-        connection=Connection(**product.connection) if product.connection else None,
+        vias=_vias(product),
         created_at=product.created_at,
+    )
+
+
+def _vias(product: Product) -> Vias | None:
+    if product.via_diameter_um is None or product.pad_diameter_um is None:
+        return None
+    return Vias(
+        via_diameter_um=product.via_diameter_um,
+        pad_diameter_um=product.pad_diameter_um,
+        layers=product.via_layers or [],  # type: ignore[arg-type]
+        copper_thickness_um=product.copper_thickness_um,
+        pad_width_um=product.pad_width_um,
+        via_depth_um=product.via_depth_um,
+        resistivity_ohm_m=product.resistivity_ohm_m,
+    )
+
+
+def _via_columns(vias: Vias | None) -> dict[str, Any]:
+    """The Product columns of via settings (all None without them)."""
+    if vias is None:
+        return {"via_diameter_um": None, "pad_diameter_um": None, "via_layers": None,
+                "copper_thickness_um": None, "pad_width_um": None, "via_depth_um": None,
+                "resistivity_ohm_m": None}
+    return {**vias.model_dump(exclude={"layers"}),
+            "via_layers": [v.model_dump() for v in vias.layers]}
+
+
+def via_geometry(product: Product) -> ViaGeometry | None:
+    """The product's via and pad diameters for the core, or None without via settings."""
+    if product.via_diameter_um is None or product.pad_diameter_um is None:
+        return None
+    return ViaGeometry(
+        product.via_diameter_um,
+        product.pad_diameter_um,
+        {int(v["layer"]): (float(v["via_diameter_um"]), float(v["pad_diameter_um"]))
+         for v in product.via_layers or []},
     )
 
 
@@ -52,21 +91,19 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> tuple[bool, Prod
     if points is None:
         grid = default_check_points(data.panel_width_mm, data.panel_height_mm)
         points = [(round(float(x), 6), round(float(y), 6)) for x, y in grid]
-    fields = data.model_dump(exclude={"check_points_mm", "connection"})
-    connection = data.connection.model_dump() if data.connection else None
+    fields = {**data.model_dump(exclude={"check_points_mm", "vias"}), **_via_columns(data.vias)}
     stored_points = [list(p) for p in points]
     with db.transaction() as session:
         # Insert-or-nothing, then read: identical products posted at the same moment all get
         # an answer (one 201, the rest 200) instead of a duplicate-key failure.
         created = insert_ignore(session, Product, {
-            **fields, "check_points_mm": stored_points, "connection": connection,
-            "history_revision": 0, "created_at": utcnow()})
+            **fields, "check_points_mm": stored_points, "history_revision": 0,
+            "created_at": utcnow()})
         product = session.scalars(select(Product).where(Product.code == data.code)
                                   .execution_options(populate_existing=True)).one()
         if not created:
             same = all(getattr(product, k) == v for k, v in fields.items()) and (
-                product.connection == connection
-                and [tuple(p) for p in product.check_points_mm] == [tuple(p) for p in points]
+                [tuple(p) for p in product.check_points_mm] == [tuple(p) for p in points]
             )
             if not same:
                 raise Conflict(f"product '{data.code}' exists with different settings")

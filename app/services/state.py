@@ -10,7 +10,7 @@ the write lock; ``store`` writes the result.
 from __future__ import annotations
 
 import uuid
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from datetime import datetime
 from typing import Any
 
@@ -19,12 +19,22 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
+from app.overlay.capture import InterfaceCapture, interface_capture
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
-from app.overlay.resistance import RHO_COPPER_20C, resistance_ohm
+from app.overlay.model import evaluate
+from app.overlay.resistance import RHO_COPPER_20C, stacked_via
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
-from app.services.products import check_points
-from app.store.stored import RemainingLayers, SidesLayers, StoredForecast, StoredPoint, StoredStack
+from app.services.products import check_points, via_geometry
+from app.store.stored import (
+    RemainingLayers,
+    SidesLayers,
+    StoredCapture,
+    StoredForecast,
+    StoredPoint,
+    StoredStack,
+    StoredStackedVia,
+)
 from app.store.tables import Fit, Measurement, PanelState, Product, utcnow
 
 #: What a state rebuild and the stack view read of each measurement in force: plain columns,
@@ -32,7 +42,7 @@ from app.store.tables import Fit, Measurement, PanelState, Product, utcnow
 _LAYER_COLUMNS = (
     Measurement.panel, Measurement.side, Measurement.layer, Measurement.id, Measurement.tool,
     Measurement.measured_at, Fit.model, Fit.note, Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox,
-    Fit.oy, Fit.kx, Fit.ky, Fit.sigma_x_um, Fit.sigma_y_um,
+    Fit.oy, Fit.kx, Fit.ky, Fit.sigma_x_um, Fit.sigma_y_um, Fit.leverage,
 )
 
 
@@ -47,6 +57,9 @@ class CurrentLayer:
     note: str | None
     terms: np.ndarray  # (8,) Tx, Ty, Sx, Sy, Ox, Oy, Kx, Ky in um and um/mm
     sigma_um: tuple[float, float]
+    #: The fit's largest leverage over the check points' reach (``app.overlay.fit``); fits
+    #: stored before the fit guard have none and count as exact (0).
+    leverage: float = 0.0
 
     @property
     def residual_var(self) -> tuple[float, float]:
@@ -71,7 +84,7 @@ def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layer
                 measurement_id=r.id, tool=r.tool, measured_at=r.measured_at, model=r.model,
                 note=r.note,
                 terms=np.array([r.tx, r.ty, r.sx, r.sy, r.ox, r.oy, r.kx, r.ky], dtype=np.float64),
-                sigma_um=(r.sigma_x_um, r.sigma_y_um))
+                sigma_um=(r.sigma_x_um, r.sigma_y_um), leverage=r.leverage or 0.0)
     return out
 
 
@@ -85,18 +98,38 @@ def _missing(present: list[int]) -> list[int]:
     return [k for k in range(1, top + 1) if k not in present]
 
 
-def _resistance(product: Product, ftb_worst_um: float) -> float | None:
-    """Resistance of the product's representative connection when the FTB misregistration
-    adds to its routed length: R = rho (L + dL) / (w t) (DOMAIN.md, resistance impact)."""
-    c = product.connection
-    if not c:
-        return None
-    return resistance_ohm(
-        (c["length_um"] + ftb_worst_um) * 1e-6,
-        c["width_um"] * 1e-6,
-        c["thickness_um"] * 1e-6,
-        rho_ohm_m=c.get("resistivity_ohm_m", RHO_COPPER_20C),
-    )
+def _finite_or_none(value: Any) -> Any:
+    return None if isinstance(value, float) and not np.isfinite(value) else value
+
+
+def _capture(
+    product: Product, layers: Layers, points: np.ndarray
+) -> tuple[list[InterfaceCapture], list[StoredCapture], StoredStackedVia | None]:
+    """Each interface's L2L offset with the fit's standard error and, with via settings, its
+    capture figures; and the stacked-via extra resistance as a figure (a via off its pad has an
+    infinite contact ratio, stored as None)."""
+    vias = via_geometry(product)
+    faces = [
+        interface_capture(
+            side=side, layer=k, terms=cl.terms, sigma_um=cl.sigma_um, leverage=cl.leverage,
+            points_mm=points, vias=vias,
+        )
+        for side in ("A", "B") for k, cl in sorted(layers[side].items())
+    ]
+    stored = [StoredCapture(**{k: _finite_or_none(v) for k, v in asdict(f).items()})
+              for f in faces]
+    chain = None
+    if vias is not None and product.copper_thickness_um and faces:
+        lengths = [np.hypot(*evaluate(layers[f.side][f.layer].terms, points[:, 0], points[:, 1]))
+                   for f in faces]
+        figures = stacked_via(
+            np.array(lengths), np.array([vias.diameters(f.layer)[0] for f in faces]), points,
+            pad_width_um=product.pad_width_um or vias.pad_diameter_um,
+            copper_thickness_um=product.copper_thickness_um, via_depth_um=product.via_depth_um,
+            rho_ohm_m=product.resistivity_ohm_m or RHO_COPPER_20C,
+        )
+        chain = StoredStackedVia(**{k: _finite_or_none(v) for k, v in asdict(figures).items()})
+    return faces, stored, chain
 
 
 def _forecast(
@@ -133,14 +166,15 @@ def _seed(serial: str) -> int:
 
 
 def _stack_summary(l2l: dict[str, dict[int, float]], stack: StackResult,
-                   resistance: float | None) -> StoredStack:
+                   capture: list[StoredCapture], chain: StoredStackedVia | None) -> StoredStack:
     return StoredStack(
         l2l_worst_um=SidesLayers(A=l2l["A"], B=l2l["B"]),
         cumulative_worst_um=[float(v) for v in stack.cumulative_worst_um],
         residual_sigma_um=(float(stack.residual_sigma_um[0]), float(stack.residual_sigma_um[1])),
         linear_worst_case_um=float(stack.linear_worst_case_um),
         rss_um=float(stack.rss_um),
-        resistance_ohm=resistance,
+        capture=capture,
+        stacked_via=chain,
     )
 
 
@@ -184,21 +218,18 @@ def compute(
         "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
         "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
     }
-    resistance = _resistance(product, stack.worst_um)
+    faces, capture, chain = _capture(product, layers, points)
     assessment = assess(
         ftb_worst_um=stack.worst_um,
         ftb_worst_at_mm=stack.worst_at_mm,
-        l2l_worst_a_um=l2l["A"],
-        l2l_worst_b_um=l2l["B"],
+        interfaces=faces,
         forecast=forecast,
         thresholds=RiskThresholds(
             ftb_limit_um=product.ftb_limit_um,
             l2l_limit_um=product.l2l_limit_um,
             p_watch=product.p_watch,
             p_at_risk=product.p_at_risk,
-            resistance_limit_ohm=(product.connection or {}).get("resistance_limit_ohm"),
         ),
-        resistance_ohm=resistance,
     )
     points_out = [
         StoredPoint(x_mm=float(p[0]), y_mm=float(p[1]), dx_um=float(v[0]), dy_um=float(v[1]),
@@ -215,7 +246,7 @@ def compute(
         "ftb_worst_y_mm": float(stack.worst_at_mm[1]),
         "ftb_points": points_out,
         "l2l_worst_um": float(max([*l2l["A"].values(), *l2l["B"].values()], default=0.0)),
-        "stack": _stack_summary(l2l, stack, resistance),
+        "stack": _stack_summary(l2l, stack, capture, chain),
         "forecast": StoredForecast(
             final_worst_um=forecast.final_worst_um,
             band_um=(float(forecast.band_um[0]), float(forecast.band_um[1])),

@@ -42,9 +42,39 @@ class SidesLayers(_Stored):
     B: dict[int, float]
 
 
+class StoredCapture(_Stored):
+    """One interface (layer k on k-1 of a side): its worst L2L with the fit's own standard
+    error and, with via settings, the capture figures (``app.overlay.capture``)."""
+
+    side: str
+    layer: int
+    worst_um: float
+    worst_at_mm: tuple[float, float]
+    model_se_um: float
+    margin_um: float | None = None
+    p_miss: float | None = None
+    p_miss_at_mm: tuple[float, float] | None = None
+    overhang_um: float | None = None
+    overlap_fraction: float | None = None
+    resistance_ratio: float | None = None
+
+
+class StoredStackedVia(_Stored):
+    """The stacked-via chain's extra resistance from lateral shifts: a figure, never a rule."""
+
+    lateral_um: float
+    at_mm: tuple[float, float]
+    extra_ohm: float
+    chain_ohm: float | None
+    relative: float | None
+
+
 class StoredStack(_Stored):
-    """What the stack view shows. ``cumulative_worst_um[k-1]`` is the worst FTB over layers
+    """What the stack view shows (rows written before a figure was dropped may still hold it:
+    it is ignored on reading). ``cumulative_worst_um[k-1]`` is the worst FTB over layers
     1..k of both sides (dense by layer number, so out-of-order arrivals read right)."""
+
+    model_config = ConfigDict(frozen=True, extra="ignore")
 
     version: Literal[1] = 1
     l2l_worst_um: SidesLayers
@@ -52,7 +82,8 @@ class StoredStack(_Stored):
     residual_sigma_um: tuple[float, float]
     linear_worst_case_um: float
     rss_um: float
-    resistance_ohm: float | None = None
+    capture: list[StoredCapture] = []
+    stacked_via: StoredStackedVia | None = None
 
 
 class RemainingLayers(_Stored):

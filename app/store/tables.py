@@ -103,10 +103,17 @@ class Product(Base):
     check_points_mm: Mapped[list[Any]]
     p_watch: Mapped[float]
     p_at_risk: Mapped[float]
-    connection: Mapped[dict[str, Any] | None]
     # Bumped whenever the product's learned history may change (a panel completes its stack,
     # or a measurement of a completed panel is replaced): forecasts cache history by it.
     history_revision: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
+    #: Via settings (all None: the product has none and L2L is judged by l2l_limit_um alone).
+    via_diameter_um: Mapped[float | None]
+    pad_diameter_um: Mapped[float | None]
+    via_layers: Mapped[list[Any] | None]  # [{"layer", "via_diameter_um", "pad_diameter_um"}]
+    copper_thickness_um: Mapped[float | None]
+    pad_width_um: Mapped[float | None]
+    via_depth_um: Mapped[float | None]
+    resistivity_ohm_m: Mapped[float | None]
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
 
@@ -207,6 +214,9 @@ class Fit(Base):
     max_residual_um: Mapped[float]
     max_residual_x_mm: Mapped[float]
     max_residual_y_mm: Mapped[float]
+    #: Largest leverage of the model over the product's check points (fit guard); None for fits
+    #: stored before it was kept.
+    leverage: Mapped[float | None]
 
 
 class PanelState(Base):

@@ -23,6 +23,6 @@ def test_demo_shows_every_risk_level_and_holds_the_panels_made_risky(db, tmp_pat
         assert serial in held, serial
     for serial in summary.over_limit:
         assert held[serial].risk == "over_limit"
-        assert held[serial].rule in ("ftb_over_limit", "l2l_over_limit")
+        assert held[serial].rule in ("ftb_over_limit", "l2l_over_limit", "via_off_pad")
     top = [p.serial for p, _ in closest_to_limit(db, n=10)]
     assert set(summary.over_limit) & set(top)

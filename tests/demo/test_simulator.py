@@ -13,6 +13,7 @@ import pytest
 from app.demo import simulator
 from app.demo.simulator import ScenarioSummary, generate
 from app.overlay.frames import mirror_sites
+from app.schemas.products import ProductCreate
 
 FILES = ("products.json", "panels.csv", "measurements.csv", "README.md")
 COMMITTED = Path(__file__).resolve().parents[2] / "app" / "demo" / "sample_data"
@@ -89,16 +90,14 @@ def test_products(products: list[dict[str, object]]) -> None:
     }  # fmt: skip
     assert len(products) == 2
     for product in products:
-        assert required <= set(product) <= required | {"connection"}
+        assert required <= set(product) <= required | {"vias"}
         assert product["layers_per_side"] == 12
         assert (product["panel_width_mm"], product["panel_height_mm"]) == (510, 515)
     assert {p["flip_axis"] for p in products} == {"x", "y"}
     assert {p["model_terms"] for p in products} == {6, 8}
-    connections = [p["connection"] for p in products if "connection" in p]
-    assert len(connections) == 1
-    assert set(connections[0]) == {  # type: ignore[arg-type]
-        "width_um", "thickness_um", "length_um", "resistivity_ohm_m", "resistance_limit_ohm",
-    }  # fmt: skip
+    vias = [p["vias"] for p in products if "vias" in p]
+    assert len(vias) == 1  # one product with via settings, one judged by its L2L limit alone
+    ProductCreate(**next(p for p in products if "vias" in p))  # valid settings  # type: ignore[arg-type]
 
 
 def test_counts(scenario: tuple[Path, ScenarioSummary], panels: Rows, measurements: Rows) -> None:

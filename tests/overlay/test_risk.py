@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from app.overlay.capture import InterfaceCapture
 from app.overlay.errors import OverlayInputError
 from app.overlay.forecast import Forecast, SideTrend
 from app.overlay.probability import WorstPointExceedance
@@ -73,7 +74,7 @@ def run(
     l2l_a: dict[int, float] | None = None,
     l2l_b: dict[int, float] | None = None,
     thresholds: RiskThresholds = LIMITS,
-    resistance: float | None = None,
+    interfaces: list[InterfaceCapture] | None = None,
 ):
     return assess(
         ftb_worst_um=ftb,
@@ -82,7 +83,7 @@ def run(
         l2l_worst_b_um=l2l_b if l2l_b is not None else {1: 3.0},
         forecast=fc,
         thresholds=thresholds,
-        resistance_ohm=resistance,
+        interfaces=interfaces,
     )
 
 
@@ -150,15 +151,67 @@ def test_l2l_over_limit_on_either_side() -> None:
     assert run(l2l_a={1: 12.0}).level == "clear"  # at the limit is within it
 
 
-def test_resistance_over_limit() -> None:
-    # reference: DOMAIN.md, resistance impact (a product limit on the connection)
-    limits = RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, resistance_limit_ohm=0.015)
-    result = run(thresholds=limits, resistance=0.0162)
-    assert (result.level, result.rule) == ("over_limit", "resistance_over_limit")
-    assert "0.0162 ohm" in result.reasons[0]
-    assert "0.015 ohm" in result.reasons[0]
-    assert run(thresholds=limits, resistance=0.0149).level == "clear"
-    assert run(resistance=1.0).level == "clear"  # no limit set: no rule
+def face(
+    worst: float,
+    *,
+    se: float = 0.0,
+    margin: float | None = None,
+    p_miss: float | None = None,
+    side: str = "B",
+    layer: int = 5,
+    overlap: float = 1.0,
+    ratio: float = 1.0,
+) -> InterfaceCapture:
+    return InterfaceCapture(
+        side=side, layer=layer, worst_um=worst, worst_at_mm=(229.5, 231.8), model_se_um=se,
+        margin_um=margin, p_miss=p_miss,
+        p_miss_at_mm=None if p_miss is None else (229.5, 231.8),
+        overhang_um=None if margin is None else worst - margin,
+        overlap_fraction=None if margin is None else overlap,
+        resistance_ratio=None if margin is None else ratio,
+    )
+
+
+def test_l2l_limit_allows_for_the_fits_standard_error() -> None:
+    # Over the 12 um limit only by more than 2 of the fit's standard errors (risk.SE_FACTOR).
+    assert run(interfaces=[face(13.0, se=0.6)]).level == "clear"  # 13 - 1.2 < 12
+    result = run(interfaces=[face(13.0, se=0.4)])  # 13 - 0.8 > 12
+    assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
+    assert "Side B layer 5: L2L worst 13.0 um at (229.5, 231.8) mm" in result.reasons[0]
+    assert "fit standard error 0.4 um" in result.reasons[0]
+
+
+def test_via_off_pad_uses_the_capture_margin() -> None:
+    # With via settings the capture margin judges L2L, not the L2L limit: 14 um is over the
+    # 12 um limit but inside a 15 um margin.
+    inside = run(interfaces=[face(14.0, margin=15.0, p_miss=0.01)])
+    assert inside.level == "clear"
+    result = run(interfaces=[face(15.7, se=0.3, margin=12.5, p_miss=0.8, overlap=0.9,
+                                  ratio=1.11)])
+    assert (result.level, result.rule) == ("over_limit", "via_off_pad")
+    reason = result.reasons[0]
+    assert reason.startswith("Via on layer 5 side B can miss its pad by 3.2 um at (229.5, 231.8)")
+    assert "capture margin of 12.5 um" in reason
+    assert "90% of the via bottom" in reason and "1.1 x the contact resistance" in reason
+    # Past the margin by less than 2 standard errors: not over, but the miss probability speaks.
+    near = run(interfaces=[face(13.0, se=0.4, margin=12.5, p_miss=0.6)])
+    assert (near.level, near.rule) == ("at_risk", "via_miss_at_risk")
+    off = run(interfaces=[face(60.0, margin=12.5, p_miss=1.0, overlap=0.0,
+                               ratio=float("inf"))])
+    assert "off its pad entirely" in off.reasons[0]
+
+
+@pytest.mark.parametrize(
+    ("p_miss", "level", "rule"),
+    [(0.049, "clear", "clear"), (0.05, "watch", "via_miss_watch"),
+     (0.2, "at_risk", "via_miss_at_risk")],
+)
+def test_via_miss_probability_levels(p_miss: float, level: str, rule: str) -> None:
+    result = run(interfaces=[face(10.0, margin=12.5, p_miss=p_miss)])
+    assert (result.level, result.rule) == (level, rule)
+    if rule != "clear":
+        assert f"probability {p_miss:.2f} at (229.5, 231.8) mm" in result.reasons[0]
+        assert "capture margin of 12.5 um" in result.reasons[0]
 
 
 def test_reasons_carry_the_figures() -> None:
@@ -223,7 +276,6 @@ def test_no_forecast_and_complete_stack() -> None:
         {"ftb_limit_um": 60.0, "l2l_limit_um": float("nan")},
         {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "p_watch": 0.3, "p_at_risk": 0.2},
         {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "watch_fraction": 1.5},
-        {"ftb_limit_um": 60.0, "l2l_limit_um": 12.0, "resistance_limit_ohm": -1.0},
     ],
 )
 def test_bad_thresholds_are_refused(kwargs: dict[str, float]) -> None:
