@@ -31,6 +31,10 @@ class Settings(BaseSettings):
     import_chunk_rows: int = 200_000
     forecast_samples: int = 2000
     history_window_panels: int = 200
+    history_refresh_s: float = Field(
+        default=300.0, description="A write refreshes its product's history cut-off when the "
+        "cut-off is older than this (it is refreshed at once when a panel completes its stack "
+        "or a measurement is replaced).")
     sqlite_busy_timeout_ms: int = 30_000
     session_secret: str = Field(
         default="", description="Signs page sessions; when empty, read from (or generated "

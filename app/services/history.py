@@ -8,9 +8,12 @@ decides per layer whether there is enough history (see
 ``app.overlay.forecast.history_from_panels``) and falls back to the limit-based prior otherwise.
 
 Learning reads a few thousand fits, so the result is kept in ``db.history`` (a
-``RevisionCache``) under the product's ``history_revision``. The pipeline bumps that revision in
-the transaction that completes a panel or replaces a measurement of a completed panel, the only
-writes that change what is learned; every process then learns again on its next use.
+``RevisionCache``) under the product's ``history_revision``. Each revision has a cut-off,
+``products.history_at``, and learning reads only what was received by then, so the history is a
+function of the revision alone: every process, the API and the import alike, learns the same one.
+The pipeline moves revision and cut-off, in the same transaction, when a panel completes its
+stack, when a measurement is replaced, and when the cut-off is older than
+``history_refresh_s`` (default 300 s); every process then learns again on its next use.
 """
 
 from __future__ import annotations
@@ -39,9 +42,11 @@ def prior(product: Product) -> LayerHistory:
 def learn(session: Session, *, product: Product) -> tuple[LayerHistory, LayerHistory]:
     """Learn side A's and side B's layer history from the product's recently completed panels."""
     window = get_settings().history_window_panels
-    serials = session.scalars(
+    as_of = product.history_at
+    serials = [] if as_of is None else session.scalars(
         select(Panel.serial)
-        .where(Panel.product_id == product.id, Panel.completed_at.is_not(None))
+        .where(Panel.product_id == product.id, Panel.completed_at.is_not(None),
+               Panel.completed_at <= as_of)
         .order_by(Panel.completed_at.desc(), Panel.serial.desc())
         .limit(window)
     ).all()
@@ -58,7 +63,8 @@ def learn(session: Session, *, product: Product) -> tuple[LayerHistory, LayerHis
             Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox, Fit.oy, Fit.kx, Fit.ky,
         )
         .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
-        .where(Measurement.panel.in_(serials), Measurement.superseded_by.is_(None))
+        .where(Measurement.panel.in_(serials), Measurement.superseded_by.is_(None),
+               Measurement.received_at <= as_of)
     ).all()
     for serial, side, layer, *values in rows:
         s = 0 if side == "A" else 1

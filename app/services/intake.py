@@ -21,13 +21,14 @@ from __future__ import annotations
 import uuid
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import datetime, timedelta
 from typing import Any, TypeVar
 
 import numpy as np
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
+from app.config import get_settings
 from app.db import Database
 from app.errors import FieldError, InvalidInput
 from app.overlay.fit import OverlayFit, fit_many, reach_of
@@ -288,19 +289,29 @@ def write(
             sitepack.pack_many(plan.panel_sites, batch.counts), strict=True))
         bulk.insert(session, Fit.__table__, _rows(Fit.__table__, (
             _fit_row(serial, plan.ids[j], plan.fits[j]) for j, serial in enumerate(batch.panel))))
-        _store_estimates(session, plan, panels)
+        replaced = {serial for serial, old in zip(batch.panel, superseded, strict=True)
+                    if old is not None}
+        _store_estimates(session, plan, panels, replaced)
         return answer(session, Outcome(ids=plan.ids, superseded=superseded,
                                        received_at=received, panels=panels)) \
             if answer is not None else Outcome(ids=plan.ids, superseded=superseded,
                                                received_at=received, panels=panels)
 
 
-def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel]) -> None:
+def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel],
+                     replaced: set[str]) -> None:
+    """Store the estimates, move each panel's status and revision, hold what must be held, and
+    refresh the history cut-off of products whose learned history changed: a panel completed
+    its stack, a measurement was replaced, or the cut-off is older than history_refresh_s."""
     serials = sorted(panels)
     states = {st.panel: st for start in range(0, len(serials), 500) for st in session.scalars(
         select(PanelState).where(PanelState.panel.in_(serials[start:start + 500])))}
     history_changed: set[int] = set()
     now = utcnow()
+    refresh = timedelta(seconds=get_settings().history_refresh_s)
+    for product in plan.products:
+        if product.history_at is None or now - product.history_at > refresh:
+            history_changed.add(product.id)
     with session.no_autoflush:
         for serial in serials:
             panel, estimate = panels[serial], plan.estimates[serial]
@@ -309,8 +320,8 @@ def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel]) -> 
             panel.revision += 1
             panel.status = next_status(panel.status, PanelEvent.MEASURED,
                                        all_layers_on=estimate.all_layers_on, serial=serial)
-            if plan.completed.get(serial) or estimate.all_layers_on:
-                # A completed panel's layers feed the product history (app.services.history).
+            if plan.completed.get(serial) or estimate.all_layers_on or serial in replaced:
+                # What the product history learns changed (app.services.history).
                 history_changed.add(panel.product_id)
                 if panel.completed_at is None:
                     panel.completed_at = now
@@ -318,7 +329,7 @@ def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel]) -> 
                                   assessment=estimate.assessment)
     if history_changed:
         session.execute(update(Product).where(Product.id.in_(sorted(history_changed)))
-                        .values(history_revision=Product.history_revision + 1))
+                        .values(history_revision=Product.history_revision + 1, history_at=now))
 
 
 __all__ = ["GENEALOGY", "Outcome", "Plan", "prepare", "write"]

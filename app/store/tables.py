@@ -106,6 +106,9 @@ class Product(Base):
     # Bumped whenever the product's learned history may change (a panel completes its stack,
     # or a measurement of a completed panel is replaced): forecasts cache history by it.
     history_revision: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
+    # The cut-off of that revision: the history learns only from what was received by then,
+    # so every process learns the same history for the same revision.
+    history_at: Mapped[datetime | None] = mapped_column(Stamp)
     #: Via settings (all None: the product has none and L2L is judged by l2l_limit_um alone).
     via_diameter_um: Mapped[float | None]
     pad_diameter_um: Mapped[float | None]

@@ -128,17 +128,38 @@ def test_completing_a_panel_bumps_the_history_revision(setup):
 
     before = revision()
     ms = _layers("P1", 8)
-    for m in ms[:-1]:
+    c.post("/api/v1/measurements", json=ms[0], headers=k.headers("tool"))
+    assert revision() == before + 1  # the product's first write sets its history cut-off
+    for m in ms[1:-1]:
         c.post("/api/v1/measurements", json=m, headers=k.headers("tool"))
-    assert revision() == before  # still in process: nothing learned changes
+    assert revision() == before + 1  # in process, cut-off fresh: what is learned is the same
     c.post("/api/v1/measurements", json=ms[-1], headers=k.headers("tool"))
-    assert revision() == before + 1
+    assert revision() == before + 2
     with db.reading() as s:
         assert s.get(Panel, "P1").completed_at is not None
     c.post("/api/v1/measurements", json={**ms[0], "measured_at": "2026-11-03T06:00:00Z"},
            headers=k.headers("tool"))  # a re-measurement of a completed panel
-    assert revision() == before + 2
+    assert revision() == before + 3
     misses = db.history.misses
     c.post("/api/v1/measurements", json=_layers("P2", 9)[0], headers=k.headers("tool"))
     c.post("/api/v1/measurements", json=_layers("P2", 9)[1], headers=k.headers("tool"))
     assert db.history.misses == misses + 1  # learned once for the new revision, then reused
+
+
+def test_a_stale_cut_off_is_refreshed_by_the_next_write(setup, monkeypatch):
+    db, c, k = setup
+    from app.config import get_settings
+
+    def cut_off():
+        with db.reading() as s:
+            return s.scalars(select(Product.history_at)).one()
+
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[0], headers=k.headers("tool"))
+    first = cut_off()
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[1], headers=k.headers("tool"))
+    assert cut_off() == first
+    monkeypatch.setenv("STACKLEDGER_HISTORY_REFRESH_S", "0")
+    get_settings.cache_clear()
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[2], headers=k.headers("tool"))
+    assert cut_off() > first
+    get_settings.cache_clear()

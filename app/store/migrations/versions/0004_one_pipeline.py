@@ -66,6 +66,7 @@ def upgrade() -> None:
     with op.batch_alter_table('products') as batch_op:
         batch_op.add_column(sa.Column('history_revision', sa.Integer(), server_default='0',
                                       nullable=False))
+        batch_op.add_column(sa.Column('history_at', sa.DateTime(timezone=True), nullable=True))
     with op.batch_alter_table('panels') as batch_op:
         batch_op.add_column(sa.Column('revision', sa.Integer(), server_default='0',
                                       nullable=False))
