@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import asdict
 from typing import Any
 
 import numpy as np
@@ -10,6 +11,7 @@ from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, InvalidInput, NotFound
+from app.overlay.capture import InterfaceCapture
 from app.overlay.model import evaluate, report_units
 from app.schemas.panels import (
     ForecastRead,
@@ -26,7 +28,6 @@ from app.services import audit, state
 from app.services import cursor as cursors
 from app.services.lifecycle import PanelStatus
 from app.services.products import get_by_code_or_raise
-from app.store.stored import StoredCapture
 from app.store.tables import Lot, Panel, PanelState, Product, utcnow
 from app.store.upsert import insert_ignore
 
@@ -231,12 +232,11 @@ def stack(*, db: Database, serial: str) -> StackRead:
             residual_sigma_um=summary.residual_sigma_um if summary else (0.0, 0.0),
             linear_worst_case_um=summary.linear_worst_case_um if summary else 0.0,
             rss_um=summary.rss_um if summary else 0.0,
-            stacked_via=summary.stacked_via.model_dump() if summary and summary.stacked_via
-            else None,
+            stacked_via=asdict(summary.stacked_via) if summary and summary.stacked_via else None,
         )
 
 
-def _capture_read(face: StoredCapture | None) -> dict[str, Any]:
+def _capture_read(face: InterfaceCapture | None) -> dict[str, Any]:
     """StackLayerRead's capture fields from the stored interface figures."""
     if face is None:
         return {}

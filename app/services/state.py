@@ -10,7 +10,7 @@ the write lock; ``store`` writes the result.
 from __future__ import annotations
 
 import uuid
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass, fields, replace
 from datetime import datetime
 from typing import Any
 
@@ -22,18 +22,16 @@ from app.config import get_settings
 from app.overlay.capture import InterfaceCapture, interface_capture
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
 from app.overlay.model import evaluate
-from app.overlay.resistance import RHO_COPPER_20C, stacked_via
+from app.overlay.resistance import RHO_COPPER_20C, StackedVia, stacked_via
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
 from app.services.products import check_points, via_geometry
 from app.store.stored import (
     RemainingLayers,
     SidesLayers,
-    StoredCapture,
     StoredForecast,
     StoredPoint,
     StoredStack,
-    StoredStackedVia,
 )
 from app.store.tables import Fit, Measurement, PanelState, Product, utcnow
 
@@ -98,13 +96,16 @@ def _missing(present: list[int]) -> list[int]:
     return [k for k in range(1, top + 1) if k not in present]
 
 
-def _finite_or_none(value: Any) -> Any:
-    return None if isinstance(value, float) and not np.isfinite(value) else value
+def _finite(figures: Any) -> Any:
+    """The figures with any infinite value (a via off its pad) as None, for JSON."""
+    return replace(figures, **{f.name: None for f in fields(figures)
+                               if isinstance(getattr(figures, f.name), float)
+                               and not np.isfinite(getattr(figures, f.name))})
 
 
 def _capture(
     product: Product, layers: Layers, points: np.ndarray
-) -> tuple[list[InterfaceCapture], list[StoredCapture], StoredStackedVia | None]:
+) -> tuple[list[InterfaceCapture], list[InterfaceCapture], StackedVia | None]:
     """Each interface's L2L offset with the fit's standard error and, with via settings, its
     capture figures; and the stacked-via extra resistance as a figure (a via off its pad has an
     infinite contact ratio, stored as None)."""
@@ -116,8 +117,7 @@ def _capture(
         )
         for side in ("A", "B") for k, cl in sorted(layers[side].items())
     ]
-    stored = [StoredCapture(**{k: _finite_or_none(v) for k, v in asdict(f).items()})
-              for f in faces]
+    stored = [_finite(f) for f in faces]
     chain = None
     if vias is not None and product.copper_thickness_um and faces:
         lengths = [np.hypot(*evaluate(layers[f.side][f.layer].terms, points[:, 0], points[:, 1]))
@@ -128,7 +128,7 @@ def _capture(
             copper_thickness_um=product.copper_thickness_um, via_depth_um=product.via_depth_um,
             rho_ohm_m=product.resistivity_ohm_m or RHO_COPPER_20C,
         )
-        chain = StoredStackedVia(**{k: _finite_or_none(v) for k, v in asdict(figures).items()})
+        chain = _finite(figures)
     return faces, stored, chain
 
 
@@ -166,7 +166,7 @@ def _seed(serial: str) -> int:
 
 
 def _stack_summary(l2l: dict[str, dict[int, float]], stack: StackResult,
-                   capture: list[StoredCapture], chain: StoredStackedVia | None) -> StoredStack:
+                   capture: list[InterfaceCapture], chain: StackedVia | None) -> StoredStack:
     return StoredStack(
         l2l_worst_um=SidesLayers(A=l2l["A"], B=l2l["B"]),
         cumulative_worst_um=[float(v) for v in stack.cumulative_worst_um],

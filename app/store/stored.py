@@ -16,6 +16,9 @@ from pydantic import BaseModel, ConfigDict, TypeAdapter
 from sqlalchemy import JSON, TypeDecorator
 from sqlalchemy.engine import Dialect
 
+from app.overlay.capture import InterfaceCapture
+from app.overlay.resistance import StackedVia
+
 
 class _Stored(BaseModel):
     model_config = ConfigDict(frozen=True, extra="forbid")
@@ -42,33 +45,6 @@ class SidesLayers(_Stored):
     B: dict[int, float]
 
 
-class StoredCapture(_Stored):
-    """One interface (layer k on k-1 of a side): its worst L2L with the fit's own standard
-    error and, with via settings, the capture figures (``app.overlay.capture``)."""
-
-    side: str
-    layer: int
-    worst_um: float
-    worst_at_mm: tuple[float, float]
-    model_se_um: float
-    margin_um: float | None = None
-    p_miss: float | None = None
-    p_miss_at_mm: tuple[float, float] | None = None
-    overhang_um: float | None = None
-    overlap_fraction: float | None = None
-    resistance_ratio: float | None = None
-
-
-class StoredStackedVia(_Stored):
-    """The stacked-via chain's extra resistance from lateral shifts: a figure, never a rule."""
-
-    lateral_um: float
-    at_mm: tuple[float, float]
-    extra_ohm: float
-    chain_ohm: float | None
-    relative: float | None
-
-
 class StoredStack(_Stored):
     """What the stack view shows (rows written before a figure was dropped may still hold it:
     it is ignored on reading). ``cumulative_worst_um[k-1]`` is the worst FTB over layers
@@ -82,8 +58,11 @@ class StoredStack(_Stored):
     residual_sigma_um: tuple[float, float]
     linear_worst_case_um: float
     rss_um: float
-    capture: list[StoredCapture] = []
-    stacked_via: StoredStackedVia | None = None
+    #: Each interface's L2L and capture figures (``app.overlay.capture``; an infinite contact
+    #: ratio, a via off its pad, is kept as None).
+    capture: list[InterfaceCapture] = []
+    #: The stacked-via chain's extra resistance: a figure, never a rule.
+    stacked_via: StackedVia | None = None
 
 
 class RemainingLayers(_Stored):
