@@ -79,10 +79,14 @@ def panel_context(db: DbDep, serial: str, choice: str, user: SignedIn) -> dict[s
 
 @router.get("/panels/{serial}", response_class=HTMLResponse)
 def panel_page(request: Request, serial: str, db: DbDep, user: User,
-               map: Annotated[str, Query(max_length=4)] = "") -> HTMLResponse:
+               map: Annotated[str, Query(max_length=4)] = "",
+               disposed: Annotated[str, Query(max_length=10, description="The disposition "
+                                              "just recorded (after the form)")] = ""
+               ) -> HTMLResponse:
     try:
         require(user, "query")
         context = panel_context(db, serial, map, user)
+        context["disposed"] = disposed if disposed in ("release", "scrap", "rework") else ""
     except DomainError as exc:
         return refused(request, user, exc)
     return render(request, "panel.html", user, **context)
