@@ -15,7 +15,7 @@ from sqlalchemy import Row, select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
-from app.overlay.capture import InterfaceCapture, interface_capture
+from app.overlay.capture import InterfaceCapture, capture_all
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
 from app.overlay.model import evaluate
 from app.overlay.resistance import RHO_COPPER_20C, stacked_via
@@ -95,20 +95,21 @@ def _capture(
     capture figures; and the stacked-via extra resistance as a figure (DOMAIN.md, "Vias,
     capture margin and connection resistance")."""
     vias = via_geometry(product)
-    faces = [
-        interface_capture(
-            side=side, layer=k, terms=cl.terms, sigma_um=cl.sigma,
-            # Fits stored before the guard have no leverage: taken as 0 (the model as exact).
-            leverage=cl.row.leverage or 0.0, points_mm=points, vias=vias,
-        )
-        for side in ("A", "B") for k, cl in sorted(layers[side].items())
-    ]
+    current = [(side, k, cl) for side in ("A", "B") for k, cl in sorted(layers[side].items())]
+    terms = np.array([cl.terms for *_, cl in current]).reshape(-1, 8)
+    faces = capture_all(
+        faces=[(side, k) for side, k, _ in current],
+        terms=terms,
+        sigma_um=np.array([cl.sigma for *_, cl in current]).reshape(-1, 2),
+        # Fits stored before the guard have no leverage: taken as 0 (the model as exact).
+        leverage=np.array([cl.row.leverage or 0.0 for *_, cl in current]),
+        points_mm=points, vias=vias,
+    )
     figures: dict[str, Any] = {"capture": [_stored(f) for f in faces], "stacked_via": None}
     if vias is not None and product.copper_thickness_um and faces:
-        lengths = [np.hypot(*evaluate(layers[f.side][f.layer].terms, points[:, 0], points[:, 1]))
-                   for f in faces]
+        lengths = np.hypot(*evaluate(terms, points[:, 0], points[:, 1]))
         figures["stacked_via"] = _stored(stacked_via(
-            np.array(lengths), np.array([vias.diameters(f.layer)[0] for f in faces]), points,
+            lengths, np.array([vias.diameters(f.layer)[0] for f in faces]), points,
             pad_width_um=product.pad_width_um or vias.pad_diameter_um,
             copper_thickness_um=product.copper_thickness_um, via_depth_um=product.via_depth_um,
             rho_ohm_m=product.resistivity_ohm_m or RHO_COPPER_20C,
