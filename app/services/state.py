@@ -19,7 +19,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
-from app.overlay.capture import InterfaceCapture, interface_capture
+from app.overlay.capture import InterfaceCapture, capture_all
 from app.overlay.forecast import Forecast, LayerHistory, forecast_final
 from app.overlay.model import evaluate
 from app.overlay.resistance import RHO_COPPER_20C, StackedVia, stacked_via
@@ -110,20 +110,21 @@ def _capture(
     capture figures; and the stacked-via extra resistance as a figure (a via off its pad has an
     infinite contact ratio, stored as None)."""
     vias = via_geometry(product)
-    faces = [
-        interface_capture(
-            side=side, layer=k, terms=cl.terms, sigma_um=cl.sigma_um, leverage=cl.leverage,
-            points_mm=points, vias=vias,
-        )
-        for side in ("A", "B") for k, cl in sorted(layers[side].items())
-    ]
+    current = [(side, k, cl) for side in ("A", "B") for k, cl in sorted(layers[side].items())]
+    terms = np.array([cl.terms for *_, cl in current]).reshape(-1, 8)
+    faces = capture_all(
+        faces=[(side, k) for side, k, _ in current],
+        terms=terms,
+        sigma_um=np.array([cl.sigma_um for *_, cl in current]).reshape(-1, 2),
+        leverage=np.array([cl.leverage for *_, cl in current]),
+        points_mm=points, vias=vias,
+    )
     stored = [_finite(f) for f in faces]
     chain = None
     if vias is not None and product.copper_thickness_um and faces:
-        lengths = [np.hypot(*evaluate(layers[f.side][f.layer].terms, points[:, 0], points[:, 1]))
-                   for f in faces]
+        lengths = np.hypot(*evaluate(terms, points[:, 0], points[:, 1]))
         figures = stacked_via(
-            np.array(lengths), np.array([vias.diameters(f.layer)[0] for f in faces]), points,
+            lengths, np.array([vias.diameters(f.layer)[0] for f in faces]), points,
             pad_width_um=product.pad_width_um or vias.pad_diameter_um,
             copper_thickness_um=product.copper_thickness_um, via_depth_um=product.via_depth_um,
             rho_ohm_m=product.resistivity_ohm_m or RHO_COPPER_20C,

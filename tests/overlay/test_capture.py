@@ -10,6 +10,7 @@ from scipy import stats
 
 from app.overlay.capture import (
     ViaGeometry,
+    capture_all,
     capture_margin_um,
     interface_capture,
     miss_probability,
@@ -147,3 +148,42 @@ def test_round_off_sigmas_act_as_known_offsets(tiny: float) -> None:
     inside = miss_probability((14.0, 0.0), (2 * tiny, tiny), 15.0)[0]
     outside = miss_probability((16.0, 0.0), (2 * tiny, tiny), 15.0)[0]
     assert inside == pytest.approx(0.0, abs=1e-12) and outside == pytest.approx(1.0, abs=1e-12)
+
+
+def test_capture_all_equals_one_at_a_time() -> None:
+    rng = np.random.default_rng(4)
+    points = rng.uniform(-230.0, 230.0, (25, 2))
+    geometry = ViaGeometry(35.0, 65.0, {1: (50.0, 90.0)})
+    faces = [("A", 1), ("A", 2), ("B", 1), ("B", 7)]
+    terms = rng.normal(0.0, 1.0, (4, 8)) * np.array([6, 6, 0.01, 0.01, 0.01, 0.01, 1e-5, 1e-5])
+    sigma = rng.uniform(0.5, 2.0, (4, 2))
+    sigma[1, 1] = sigma[1, 0]  # one isotropic case among them
+    leverage = rng.uniform(0.05, 0.9, 4)
+    batch = capture_all(faces=faces, terms=terms, sigma_um=sigma, leverage=leverage,
+                        points_mm=points, vias=geometry)
+    for i, (side, layer) in enumerate(faces):
+        one = interface_capture(side=side, layer=layer, terms=terms[i],
+                                sigma_um=(float(sigma[i, 0]), float(sigma[i, 1])),
+                                leverage=float(leverage[i]), points_mm=points, vias=geometry)
+        assert batch[i] == one
+    assert batch[0].margin_um == 20.0 and batch[3].margin_um == 15.0
+
+
+def test_far_inside_the_bound_is_reported_and_holds() -> None:
+    # Below 1e-6 the Rayleigh bound exp(-(m - |mu|)^2 / (2 s_max^2)) is reported; it must lie
+    # above the exact value (2,048-node quadrature of the same integral as reference).
+    import app.overlay.capture as capture
+
+    mean, sigma = (3.0, 2.0), (1.0, 1.6)
+    got = float(miss_probability(mean, sigma, 15.0)[0])
+    bound = math.exp(-0.5 * ((15.0 - math.hypot(*mean)) / 1.6) ** 2)
+    assert got == pytest.approx(bound, rel=1e-12) and got < 1e-6
+    nodes = capture._NODES
+    try:
+        capture._NODES = np.polynomial.legendre.leggauss(2048)
+        exact = 1.0 - float(capture._disc_mass(np.array([3.0]), np.array([1.0]),
+                                               np.array([2.0]), np.array([1.6]),
+                                               np.array([15.0]))[0])
+    finally:
+        capture._NODES = nodes
+    assert exact <= got
