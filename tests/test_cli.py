@@ -61,3 +61,13 @@ def test_bad_import_is_refused_and_kept(env, tmp_path):
     assert "row 1, column side" in r.stderr
     kept = rejections.latest(db=env)
     assert kept.endpoint == "cli import bad.csv" and kept.body == path.read_bytes()
+
+
+def test_demo_prints_the_pages_address_and_a_key_per_role(tmp_path):
+    r = CliRunner().invoke(cli, ["demo", "--no-serve", "--database", str(tmp_path / "d.db"),
+                                 "--port", "8123"])
+    assert r.exit_code == 0, r.output
+    assert "http://127.0.0.1:8123/sign-in" in r.output
+    for role in ("tool", "engineer", "supervisor", "admin"):
+        assert any(line.split()[:1] == [role] and "sl_" in line
+                   for line in r.output.splitlines()), role

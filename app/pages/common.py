@@ -16,7 +16,7 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
 from app.api.deps import DbDep, page_secret
-from app.errors import DomainError, Forbidden, Unauthenticated
+from app.errors import DomainError, Unauthenticated
 from app.schemas.holds import CAUTION
 from app.services import keys, sessions
 from app.services.keys import Principal
@@ -92,6 +92,3 @@ def sign_in_redirect(request: Request, exc: Exception) -> Response:
     assert isinstance(exc, SignInRequired)
     return RedirectResponse(f"/sign-in?next={quote(exc.next_path, safe='/')}", status_code=303)
 
-
-__all__ = ["TEMPLATES", "Forbidden", "SignInRequired", "SignedIn", "User", "refused", "render",
-           "require", "sign_in_redirect", "signed_in"]

@@ -57,7 +57,7 @@ def panel_context(db: DbDep, serial: str, choice: str, user: SignedIn) -> dict[s
                 [charts.Arrow(s.x_mm, s.y_mm, *pick(s)) for s in layer_sites.sites],
                 width_mm=product.panel_width_mm, height_mm=product.panel_height_mm,
                 title=f"Side {side} layer {layer}: {kind} site vectors", colour=colour,
-                ident=f"map-{kind}", size_px=330, what=f"{kind} vector")
+                ident=f"map-{kind}", size_px=400, what=f"{kind} vector")
     return {
         "panel": panel, "stack": stack, "product": product,
         "hold_history": holds.for_panel(db=db, serial=serial),
