@@ -85,3 +85,16 @@ def test_nul_characters_are_refused_not_failed(db):
         r = api.get(path, headers=k.headers("engineer"))
         assert r.status_code == 422, (path, r.text)
         assert r.json()["errors"][0]["pointer"].startswith("query:/")
+
+
+def test_a_panel_with_no_measurement_has_a_page(db):
+    make_product(db)
+    make_panel(db)
+    k = make_keys(db)
+    c = page_client(db)
+    sign_in(c, k["engineer"])
+    page = c.get("/panels/P0001")
+    assert page.status_code == 200
+    assert "No measurement yet." in page.text
+    assert page.text.count('class="ftb-point"') == 0
+    assert page.text.count('class="limit-line"') == 1
