@@ -157,6 +157,9 @@ def demo(
 
     url = load_demo(database, console=out, load=lambda db: import_file(
         db, SAMPLE_MEASUREMENTS, label="demo metrology"))
+    if not serve_api:
+        out.print(f"\npages, once served (STACKLEDGER_DATABASE_URL={url} stackledger serve): "
+                  f"http://{host}:{port}/sign-in")
     if serve_api:
         import os
 
@@ -168,6 +171,8 @@ def demo(
         get_settings.cache_clear()
         out.print(f"\nserving on http://{host}:{port}  (API docs: http://{host}:{port}/docs; "
                   "Ctrl-C stops)")
+        out.print(f"pages: http://{host}:{port}/sign-in  (sign in with a key above: the "
+                  "supervisor's for the shift board and dispositions)")
         uvicorn.run("app.main:app", host=host, port=port)
 
 

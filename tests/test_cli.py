@@ -83,3 +83,11 @@ def test_refused_import_of_a_long_file_name_is_recorded(env, tmp_path):
     assert kept is not None and kept.body == path.read_bytes()
     assert len(kept.endpoint) == 200 and kept.endpoint.startswith("cli import mmm")
     assert kept.endpoint.endswith("...")
+def test_demo_prints_the_pages_address_and_a_key_per_role(tmp_path):
+    r = CliRunner().invoke(cli, ["demo", "--no-serve", "--database", str(tmp_path / "d.db"),
+                                 "--port", "8123"])
+    assert r.exit_code == 0, r.output
+    assert "http://127.0.0.1:8123/sign-in" in r.output
+    for role in ("tool", "engineer", "supervisor", "admin"):
+        assert any(line.split()[:1] == [role] and "sl_" in line
+                   for line in r.output.splitlines()), role

@@ -5,18 +5,25 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 from fastapi.staticfiles import StaticFiles
 
 from app.pages import auth, board, dispositions, lists, panel
-from app.pages.common import SignInRequired, sign_in_redirect
+from app.pages.common import (
+    PageInputRefused,
+    SignInRequired,
+    checked_input,
+    input_refused,
+    sign_in_redirect,
+)
 
 ROUTERS = (auth.router, board.router, lists.router, panel.router, dispositions.router)
 
 
 def install(app: FastAPI) -> None:
     for router in ROUTERS:
-        app.include_router(router)
+        app.include_router(router, dependencies=[Depends(checked_input)])
     app.add_exception_handler(SignInRequired, sign_in_redirect)
+    app.add_exception_handler(PageInputRefused, input_refused)
     app.mount("/static/pages", StaticFiles(directory=str(Path(__file__).parent / "static")),
               name="pages-static")

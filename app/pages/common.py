@@ -16,15 +16,42 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.templating import Jinja2Templates
 
 from app.api.deps import DbDep, page_secret
-from app.errors import DomainError, Forbidden, Unauthenticated
+from app.errors import DomainError, InvalidInput, Unauthenticated
 from app.schemas.holds import CAUTION
 from app.services import keys, sessions
+from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.views import text
 
 TEMPLATES = Jinja2Templates(directory=str(Path(__file__).parent / "templates"))
 TEMPLATES.env.filters.update(text.FILTERS)
 TEMPLATES.env.globals.update(caution=CAUTION)
+
+
+class PageInputRefused(Exception):
+    """Raised by the page input check; answered with the HTML error page."""
+
+    def __init__(self, error: DomainError) -> None:
+        super().__init__(error.detail)
+        self.error = error
+
+
+async def checked_input(request: Request) -> None:
+    """Every page's query, path and form text is free of NUL characters (PostgreSQL cannot
+    store or compare them), checked once for all page routes."""
+    values = {**request.query_params, **request.path_params}
+    if request.method == "POST":
+        form = await request.form()
+        values.update({k: v for k, v in form.items() if isinstance(v, str)})
+    try:
+        refuse_nul(**{str(k): str(v) for k, v in values.items()})
+    except InvalidInput as exc:
+        raise PageInputRefused(exc) from exc
+
+
+def input_refused(request: Request, exc: Exception) -> Response:
+    assert isinstance(exc, PageInputRefused)
+    return refused(request, None, exc.error)
 
 
 class SignInRequired(Exception):
@@ -92,6 +119,3 @@ def sign_in_redirect(request: Request, exc: Exception) -> Response:
     assert isinstance(exc, SignInRequired)
     return RedirectResponse(f"/sign-in?next={quote(exc.next_path, safe='/')}", status_code=303)
 
-
-__all__ = ["TEMPLATES", "Forbidden", "SignInRequired", "SignedIn", "User", "refused", "render",
-           "require", "sign_in_redirect", "signed_in"]

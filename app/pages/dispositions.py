@@ -21,8 +21,8 @@ router = APIRouter(include_in_schema=False)
 def _data(action: str, note: str, rework_side: str, rework_layer: str) -> DispositionCreate:
     try:
         return DispositionCreate(
-            action=action, note=note,  # type: ignore[arg-type]
-            rework_side=(rework_side or None) if action == "rework" else None,  # type: ignore[arg-type]
+            action=action, note=note,
+            rework_side=(rework_side or None) if action == "rework" else None,
             rework_layer=(int(rework_layer) if rework_layer.strip() else None)
             if action == "rework" else None,
         )

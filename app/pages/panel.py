@@ -48,16 +48,20 @@ def panel_context(db: DbDep, serial: str, choice: str, user: SignedIn) -> dict[s
     maps = {}
     if layer_sites is not None:
         side, layer = layer_sites.side, layer_sites.layer
-        for kind, colour, pick in (
-            ("measured", charts.SIDE_A if side == "A" else charts.SIDE_B,
-             lambda s: (s.dx_um, s.dy_um)),
-            ("residual", charts.LIMIT, lambda s: (s.residual_dx_um, s.residual_dy_um)),
-        ):
+        arrows = {
+            "measured": [charts.Arrow(s.x_mm, s.y_mm, s.dx_um, s.dy_um)
+                         for s in layer_sites.sites],
+            "residual": [charts.Arrow(s.x_mm, s.y_mm, s.residual_dx_um, s.residual_dy_um)
+                         for s in layer_sites.sites],
+        }
+        colours = {"measured": charts.SIDE_A if side == "A" else charts.SIDE_B,
+                   "residual": charts.LIMIT}
+        for kind in arrows:
             maps[kind] = charts.vector_map_svg(
-                [charts.Arrow(s.x_mm, s.y_mm, *pick(s)) for s in layer_sites.sites],
+                arrows[kind], colour=colours[kind],
                 width_mm=product.panel_width_mm, height_mm=product.panel_height_mm,
-                title=f"Side {side} layer {layer}: {kind} site vectors", colour=colour,
-                ident=f"map-{kind}", size_px=330, what=f"{kind} vector")
+                title=f"Side {side} layer {layer}: {kind} site vectors",
+                ident=f"map-{kind}", size_px=400, what=f"{kind} vector")
     return {
         "panel": panel, "stack": stack, "product": product,
         "hold_history": holds.for_panel(db=db, serial=serial),

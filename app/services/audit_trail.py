@@ -16,18 +16,11 @@ from app.schemas.records import (
     RejectedUploadRead,
 )
 from app.services import cursor as cursors
+from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.store.tables import AuditEntry, RejectedUpload
 
 BODY_START_CHARS = 2000
-
-
-def _text_filters(**values: str | None) -> None:
-    """A NUL cannot be stored or compared by PostgreSQL: refuse it by name, on both databases."""
-    bad = [name for name, v in values.items() if v is not None and "\0" in v]
-    if bad:
-        raise InvalidInput("a filter contains a NUL character",
-                           [FieldError("NUL character", pointer=f"query:/{n}") for n in bad])
 
 
 def _after_id(cursor: str | None) -> int | None:
@@ -43,7 +36,7 @@ def list_audit(
     cursor: str | None = None,
 ) -> AuditPage:
     """Audit entries, newest first; ``hold`` matches the hold id the entry names."""
-    _text_filters(panel=panel, hold=hold, actor=actor)
+    refuse_nul(panel=panel, hold=hold, actor=actor)
     if since is not None and since.tzinfo is None:
         raise InvalidInput("since needs a time zone, e.g. 2026-11-02T06:00:00Z",
                            [FieldError("no time zone", pointer="query:/since")])

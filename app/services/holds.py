@@ -27,6 +27,7 @@ from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit
 from app.services import cursor as cursors
+from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
@@ -249,6 +250,7 @@ def list_holds(
     optionally only those of one product, lot or rule."""
     if state not in (None, "open", "closed"):
         raise InvalidInput(f"state must be 'open' or 'closed', got '{state}'")
+    refuse_nul(product=product, lot=lot, rule=rule)
     with db.reading() as session:
         query = _with_panel()
         if state:

@@ -26,7 +26,7 @@ def nice_step(span: float, target: int = 6) -> float:
     if span <= 0 or not math.isfinite(span):
         return 1.0
     raw = span / target
-    power = 10 ** math.floor(math.log10(raw))
+    power = 10.0 ** math.floor(math.log10(raw))
     return next(m * power for m in (1, 2, 5, 10) if m * power >= raw)
 
 
@@ -34,7 +34,7 @@ def nice_length(value: float) -> float:
     """The largest 1, 2 or 5 times a power of ten not above ``value`` (a scale arrow)."""
     if value <= 0 or not math.isfinite(value):
         return 1.0
-    power = 10 ** math.floor(math.log10(value))
+    power = 10.0 ** math.floor(math.log10(value))
     return max(m * power for m in (1, 2, 5) if m * power <= value)
 
 

@@ -64,3 +64,37 @@ def test_audit_page_filters(db):
     assert "P0002" in text and "/panels/P0001" not in text
     assert c.get("/audit?since=2026-01-01T00:00").status_code == 200
     assert c.get("/audit?since=soon").status_code == 422
+
+
+def test_nul_characters_are_refused_not_failed(db):
+    """PostgreSQL cannot compare a NUL: every page and the hold-list filters say so (422)."""
+    make_product(db)
+    make_panel(db)
+    k = make_keys(db)
+    c = page_client(db)
+    csrf = sign_in(c, k["supervisor"])
+    for path in ("/board?product=a%00", "/board?rule=%00", "/panels?lot=a%00",
+                 "/audit?actor=a%00", "/panels/P%00", "/panels/P0001?map=A%00"):
+        r = c.get(path)
+        assert r.status_code == 422 and "NUL" in r.text, (path, r.status_code)
+    r = c.post("/holds/x/disposition", data={"csrf": csrf, "action": "release",
+                                             "note": "ok\x00"})
+    assert r.status_code == 422 and "NUL" in r.text
+    api = client(db)
+    for path in ("/api/v1/holds?lot=a%00", "/api/v1/holds.csv?rule=a%00"):
+        r = api.get(path, headers=k.headers("engineer"))
+        assert r.status_code == 422, (path, r.text)
+        assert r.json()["errors"][0]["pointer"].startswith("query:/")
+
+
+def test_a_panel_with_no_measurement_has_a_page(db):
+    make_product(db)
+    make_panel(db)
+    k = make_keys(db)
+    c = page_client(db)
+    sign_in(c, k["engineer"])
+    page = c.get("/panels/P0001")
+    assert page.status_code == 200
+    assert "No measurement yet." in page.text
+    assert page.text.count('class="ftb-point"') == 0
+    assert page.text.count('class="limit-line"') == 1
