@@ -5,6 +5,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.figures import PointOut, Ppm, Probability, Um, UmBand, UmPair, Urad
 from app.schemas.text import Identifier, Name
 
 PanelStatus = Literal["in_process", "on_hold", "scrapped", "complete"]
@@ -27,14 +28,14 @@ class SidesInt(BaseModel):
 class FtbPoint(BaseModel):
     x_mm: float
     y_mm: float
-    dx_um: float
-    dy_um: float
-    length_um: float
+    dx_um: Um
+    dy_um: Um
+    length_um: Um
 
 
 class FtbRead(BaseModel):
-    worst_um: float
-    worst_at_mm: tuple[float, float]
+    worst_um: Um
+    worst_at_mm: PointOut
     points: list[FtbPoint]
 
 
@@ -44,10 +45,11 @@ class RemainingRead(BaseModel):
 
 
 class ForecastRead(BaseModel):
-    final_worst_um: float = Field(description="Expected worst FTB over the check points at the "
+    final_worst_um: Um = Field(description="Expected worst FTB over the check points at the "
                                   "last layer.")
-    band_um: tuple[float, float] = Field(description="95 % band of the final worst FTB.")
-    p_exceed: float = Field(description="Probability that the final worst FTB exceeds the limit.")
+    band_um: UmBand = Field(description="95 % band of the final worst FTB.")
+    p_exceed: Probability = Field(
+        description="Probability that the final worst FTB exceeds the limit.")
     remaining: RemainingRead
     method: str
 
@@ -62,7 +64,7 @@ class PanelRead(BaseModel):
         description="Layers below the highest measured one that have no measurement yet."
     )
     ftb: FtbRead
-    l2l_worst_um: float
+    l2l_worst_um: Um
     risk: RiskLevel
     reasons: list[str]
     forecast: ForecastRead | None
@@ -82,18 +84,18 @@ class StackLayerRead(BaseModel):
     measured_at: datetime
     model: str
     note: str | None
-    tx_um: float
-    ty_um: float
-    sx_ppm: float
-    sy_ppm: float
-    rotation_urad: float
-    nonorthogonality_urad: float
+    tx_um: Um
+    ty_um: Um
+    sx_ppm: Ppm
+    sy_ppm: Ppm
+    rotation_urad: Urad
+    nonorthogonality_urad: Urad
     kx_um_per_mm2: float
     ky_um_per_mm2: float
-    sigma_x_um: float
-    sigma_y_um: float
-    l2l_worst_um: float
-    cumulative_ftb_worst_um: float = Field(
+    sigma_x_um: Um
+    sigma_y_um: Um
+    l2l_worst_um: Um
+    cumulative_ftb_worst_um: Um = Field(
         description="Worst FTB over the check points using layers 1..layer of both sides."
     )
 
@@ -102,6 +104,6 @@ class StackRead(BaseModel):
     serial: str
     frame: Literal["panel"] = "panel"
     layers: list[StackLayerRead]
-    residual_sigma_um: tuple[float, float]
-    linear_worst_case_um: float = Field(description="Planning figure, not the estimate.")
-    rss_um: float = Field(description="Planning figure, not the estimate.")
+    residual_sigma_um: UmPair
+    linear_worst_case_um: Um = Field(description="Planning figure, not the estimate.")
+    rss_um: Um = Field(description="Planning figure, not the estimate.")

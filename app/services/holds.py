@@ -5,9 +5,14 @@
 - A released panel is not held again for the same rule unless its p_exceed or its current FTB
   has become worse than at release.
 - Manual hold: an engineer, with a reason.
-- Disposition (supervisor): release, scrap, or rework of the last layer (its re-measurement then
-  supersedes the old one through the normal upload). A note is required; every change is in the
-  audit log with who, when, what and the figures.
+- Disposition (supervisor): release, scrap, or rework of a named layer and side. Rework sets
+  that layer's measurement in force aside (its ``superseded_by`` is the hold's id: superseded by
+  the rework, kept like every superseded measurement), recomputes the panel's FTB, forecast and
+  risk without it, so the layer counts as still to come, and puts the panel back in process;
+  the layer's next measurement takes its place through the normal upload. The recomputed risk
+  does not hold the panel again in the same step (the supervisor has just decided); the next
+  measurement is judged by the usual rules. A note is required; every change is in the audit log
+  with who, when, what and the figures (after the rework too).
 
 The tool supports these decisions; they rest with the fab's own quality procedures and
 qualified engineers (``app.schemas.holds.CAUTION``).
@@ -22,13 +27,14 @@ from sqlalchemy import ColumnElement, Row, Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
-from app.errors import Conflict, InvalidInput, NotFound
+from app.errors import Conflict, FieldError, InvalidInput, NotFound
 from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit
 from app.services import cursor as cursors
+from app.services import state as panel_state
 from app.services.keys import Principal
-from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
+from app.store.tables import Hold, Lot, Measurement, Panel, PanelState, Product, utcnow
 
 HOLDING_LEVELS: Final = ("at_risk", "over_limit")
 AUTOMATIC: Final = "stackledger (automatic)"
@@ -120,6 +126,7 @@ def _to_read(row: Row[Any]) -> HoldRead:
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
         disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,
+        rework=hold.figures.get("rework") if hold.disposition == "rework" else None,
     )
 
 
@@ -164,12 +171,18 @@ def _built_status(session: Session, panel: Panel) -> str:
     return "in_process"
 
 
-def _last_layer(state: PanelState | None) -> dict[str, int]:
-    if state is None:
-        return {}
-    a, b = max(state.layers_a, default=0), max(state.layers_b, default=0)
-    # The last layer built is the higher one; at a balanced pair, side B follows side A.
-    return {"side": "B", "layer": b} if b >= a and b else {"side": "A", "layer": a}
+def _set_aside(session: Session, *, hold: Hold, side: str, layer: int) -> dict[str, Any]:
+    """Supersede the measurement in force of ``layer`` and ``side`` by the rework ``hold``."""
+    measurement = session.scalars(select(Measurement).where(
+        Measurement.panel == hold.panel, Measurement.side == side, Measurement.layer == layer,
+        Measurement.superseded_by.is_(None))).one_or_none()
+    if measurement is None:
+        raise InvalidInput(
+            f"panel '{hold.panel}' has no measurement in force of layer {layer} side {side}; "
+            "name a measured layer to rework", [FieldError(message="no measurement in force",
+                                                           pointer="/layer")])
+    measurement.superseded_by = hold.id
+    return {"side": side, "layer": layer, "set_aside_measurement": str(measurement.id)}
 
 
 def dispose(
@@ -205,9 +218,14 @@ def dispose(
         elif data.action == "scrap":
             panel.status = "scrapped"
         else:
-            details["rework"] = _last_layer(state)
+            assert data.side is not None and data.layer is not None  # DispositionCreate checks
+            details["rework"] = _set_aside(session, hold=hold, side=data.side, layer=data.layer)
             hold.figures = {**hold.figures, "rework": details["rework"]}
             panel.status = "in_process"
+            session.flush()
+            after, _ = panel_state.refresh(
+                session, panel=panel, product=session.get_one(Product, panel.product_id))
+            details["after_rework"] = _figures(after)
         audit.record(session, actor=principal.label, action=f"disposition_{data.action}",
                      subject=hold.panel, details=details)
         session.flush()
@@ -246,6 +264,21 @@ def list_holds(
         more = len(rows) > limit
         return HoldList(holds=[_to_read(r) for r in rows[:limit]],
                         next_cursor=_cursor(rows[limit - 1][0]) if more else None)
+
+
+def open_hold_id(*, db: Database, id_or_prefix: str) -> str:
+    """The full id of the open hold whose id is, or starts with, ``id_or_prefix`` (the terminal
+    table shows the first 8 characters); NotFound or Conflict when none or several match."""
+    wanted = id_or_prefix.strip().lower()
+    if len(wanted) < 4:
+        raise InvalidInput("give at least the first 4 characters of the hold id")
+    found = [h.id for h in list_all_holds(db=db, state="open").holds if h.id.startswith(wanted)]
+    if not found:
+        raise NotFound(f"no open hold has an id starting with '{id_or_prefix}'")
+    if len(found) > 1:
+        raise Conflict(f"{len(found)} open holds have ids starting with '{id_or_prefix}'; "
+                       "give more characters")
+    return found[0]
 
 
 def list_all_holds(*, db: Database, state: str | None = "open") -> HoldList:
