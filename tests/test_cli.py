@@ -136,3 +136,23 @@ def test_commands_name_the_database_and_never_create_one_by_accident(tmp_path, m
                                                 f"sqlite:///{tmp_path / 'fresh.db'}"})
     assert r.exit_code == 0 and "Open holds: 0" in r.stdout
     get_settings.cache_clear()
+
+
+def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
+    rows = [f"P1,{layer},A,tool,EXP-T1,2026-11-02T0{layer}:00:00Z,{x},{y},20,0\n"
+            for layer in (1, 2) for x in (-200, 0, 200) for y in (-200, 0, 200)]
+    path = tmp_path / "m.csv"
+    path.write_text(HEADER + "".join(rows), encoding="utf-8")
+    assert CliRunner().invoke(cli, ["import", str(path)]).exit_code == 0
+    hold_id = CliRunner().invoke(cli, ["holds", "--csv"]).stdout.splitlines()[1].split(",")[-1]
+    hold_id = hold_id.strip('"')
+    missing = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--note",
+                                       "strip layer 2", "--by", "lead"])
+    assert missing.exit_code == 2 and "layer and the side" in missing.stderr
+    r = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--layer", "2",
+                                 "--side", "A", "--note", "strip layer 2", "--by", "lead"])
+    assert r.exit_code == 0, r.output
+    assert "layer 2 side A set aside" in r.stdout
+    r = CliRunner().invoke(cli, ["panel", "P1"])
+    # Layer 2 A (+20 um) set aside: the FTB is layer 1's 20 um alone.
+    assert "layers A [1]" in r.stdout and "FTB worst 20.0 um" in r.stdout
