@@ -27,3 +27,4 @@ bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/ingest.py
 	$(BIN)/python benchmarks/holds.py
 	$(BIN)/python benchmarks/pages.py
+	$(BIN)/python benchmarks/metrics.py

@@ -8,9 +8,10 @@ from typing import Annotated
 import typer
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
+from app import cli_holds
+from app.cli_store import DatabaseOption, err, fail, out, store
 from app.db import Database
 from app.errors import DomainError
-from app.reports import wide_console
 
 cli = typer.Typer(help="stackledger: panel traceability and front-to-back overlay.",
                   no_args_is_help=True, add_completion=False)
@@ -18,25 +19,17 @@ db_cli = typer.Typer(help="Database schema.", no_args_is_help=True)
 key_cli = typer.Typer(help="API keys.", no_args_is_help=True)
 cli.add_typer(db_cli, name="db")
 cli.add_typer(key_cli, name="key")
-err = wide_console(stderr=True)
-out = wide_console()
-
-
-def _fail(exc: DomainError) -> None:
-    err.print(f"[red]error[/red]: {exc.detail}")
-    for e in exc.errors[:20]:
-        where = f"line {e.line}" if e.line is not None else (e.pointer or "")
-        column = f", column {e.column}" if e.column else ""
-        err.print(f"  {where}{column}: {e.message}")
-    raise typer.Exit(2)
+cli.command("holds")(cli_holds.holds_command)
+cli.command("hold")(cli_holds.hold_command)
+cli.command("dispose")(cli_holds.dispose_command)
 
 
 @db_cli.command("upgrade")
-def db_upgrade() -> None:
-    """Bring the database (STACKLEDGER_DATABASE_URL) to the latest schema."""
+def db_upgrade(database: DatabaseOption = None) -> None:
+    """Create the database or bring it to the latest schema."""
     from app.store.migrate import upgrade
 
-    db = Database()
+    db = store(database, create=True)
     upgrade(db.engine)
     err.print("database is at the latest schema")
 
@@ -45,26 +38,27 @@ def db_upgrade() -> None:
 def key_create(
     role: Annotated[str, typer.Option(help="tool, engineer, supervisor or admin")],
     label: Annotated[str, typer.Option(help="Who or what holds the key")],
+    database: DatabaseOption = None,
 ) -> None:
     """Create an API key; the key alone is printed on stdout, once."""
     from app.services import keys
 
     try:
-        key, _ = keys.create(db=Database(), role=role, label=label)
+        key, _ = keys.create(db=store(database), role=role, label=label)
     except DomainError as exc:
-        _fail(exc)
+        fail(exc)
     print(key)
 
 
 @key_cli.command("revoke")
-def key_revoke(prefix: str) -> None:
+def key_revoke(prefix: str, database: DatabaseOption = None) -> None:
     """Revoke a key by its prefix (the 8 hex characters after 'sl_')."""
     from app.services import keys
 
     try:
-        keys.revoke(db=Database(), prefix=prefix)
+        keys.revoke(db=store(database), prefix=prefix)
     except DomainError as exc:
-        _fail(exc)
+        fail(exc)
     err.print(f"key {prefix} revoked")
 
 
@@ -80,7 +74,7 @@ def import_file(db: Database, path: Path, label: str) -> None:
             repeat, result = imports.import_path(db=db, path=path, label=label,
                                                  progress=lambda n: bar.advance(task, n))
         except DomainError as exc:
-            _fail(exc)
+            fail(exc)
     if repeat:
         err.print(f"{path.name} was imported before with the same content; nothing applied "
                   "again")
@@ -90,57 +84,49 @@ def import_file(db: Database, path: Path, label: str) -> None:
 
 
 @cli.command("import")
-def import_command(file: Path) -> None:
+def import_command(file: Path, database: DatabaseOption = None) -> None:
     """Import a CSV file of site rows (same rules as POST /api/v1/imports)."""
-    import_file(Database(), file, label="cli")
+    if not file.is_file():
+        err.print(f"[red]error[/red]: no file at {file}")
+        raise typer.Exit(2)
+    import_file(store(database), file, label="cli")
 
 
 @cli.command("serve")
 def serve(
     host: str = "127.0.0.1",
     port: int = 8000,
+    database: DatabaseOption = None,
     workers: Annotated[int, typer.Option(min=1, max=64, help="Server processes; on PostgreSQL "
                                          "about one per core serves concurrent posts best")] = 1,
 ) -> None:
     """Serve the API (docs at /docs)."""
+    import os
+
     import uvicorn
 
+    from app.cli_store import url_of
+
+    store(database).close()  # refuse to serve a database without the schema
+    os.environ["STACKLEDGER_DATABASE_URL"] = url_of(database)
+    from app.config import get_settings
+
+    get_settings.cache_clear()
     uvicorn.run("app.main:app", host=host, port=port, workers=workers, log_level="warning")
 
 
 @cli.command("panel")
-def panel(serial: str) -> None:
+def panel(serial: str, database: DatabaseOption = None) -> None:
     """Print one panel's state."""
     from app.services import panels
 
     try:
-        p = panels.get(db=Database(), serial=serial)
+        p = panels.get(db=store(database), serial=serial)
     except DomainError as exc:
-        _fail(exc)
+        fail(exc)
     from app.reports import print_panel
 
     print_panel(out, p)
-
-
-@cli.command("holds")
-def holds_command(
-    csv: Annotated[bool, typer.Option("--csv", help="CSV on stdout instead of a table")] = False,
-    state: str = "open",
-) -> None:
-    """The hold list for the shift start."""
-    from app.reports import print_holds
-    from app.services import holds
-    from app.services.hold_list import holds_csv
-
-    try:
-        hold_list = holds.list_all_holds(db=Database(), state=state)
-    except DomainError as exc:
-        _fail(exc)
-    if csv:
-        print(holds_csv(hold_list), end="")
-        err.print(hold_list.caution, soft_wrap=True)  # on stderr: the CSV stays clean
-    else:
-        print_holds(out, hold_list)
 
 
 @cli.command("demo")
@@ -157,8 +143,11 @@ def demo(
 
     url = load_demo(database, console=out, load=lambda db: import_file(
         db, SAMPLE_MEASUREMENTS, label="demo metrology"))
+    out.print(f"\nThe demo's database is {database}; the other commands reach it with "
+              f"--database {database} (or STACKLEDGER_DATABASE_URL={url}), for example "
+              f"`stackledger holds --database {database}`.", soft_wrap=True)
     if not serve_api:
-        out.print(f"\npages, once served (STACKLEDGER_DATABASE_URL={url} stackledger serve): "
+        out.print(f"pages, once served (stackledger serve --database {database}): "
                   f"http://{host}:{port}/sign-in")
     if serve_api:
         import os

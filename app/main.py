@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib.resources
+import time
 from collections.abc import AsyncIterator, Awaitable, Callable
 from contextlib import asynccontextmanager
 
@@ -14,6 +15,7 @@ from fastapi.staticfiles import StaticFiles
 from app import pages
 from app.api import problems
 from app.api.body import BodyCapture
+from app.api.methods import AllowedMethods
 from app.api.parameters import checked_parameters
 from app.api.routes import (
     analysis,
@@ -56,6 +58,7 @@ def create_app(db: Database | None = None) -> FastAPI:
     app.state.db = db or Database()
     problems.install(app)
     app.add_middleware(BodyCapture)
+    app.add_middleware(AllowedMethods)
     for module in (products, panels, panel_sites, measurements, holds, records, service,
                    analysis):
         app.include_router(module.router)
@@ -74,13 +77,17 @@ def create_app(db: Database | None = None) -> FastAPI:
             swagger_favicon_url="/static/swagger/favicon.png",
         )
 
+    app.state.request_metrics = metrics.RequestMetrics()
+
     @app.middleware("http")
     async def count(request: Request, call_next: Callable[[Request], Awaitable[Response]]
                     ) -> Response:
+        started = time.perf_counter()
         response = await call_next(request)
         route = request.scope.get("route")
-        metrics.count_request(request.method, getattr(route, "path", "unmatched"),
-                              response.status_code)
+        app.state.request_metrics.observe(
+            method=request.method, route=getattr(route, "path", "unmatched"),
+            status=response.status_code, seconds=time.perf_counter() - started)
         return response
 
     return app

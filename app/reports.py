@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from app.schemas.holds import CAUTION, HoldList
@@ -49,25 +50,41 @@ def print_closest(console: Console, panels: list[tuple[PanelRead, float]], title
     console.print(table)
 
 
-def print_holds(console: Console, hold_list: HoldList) -> None:
-    """The hold list: one table row per hold, worst first then oldest, then the reasons."""
-    table = Table(title=f"Open holds: {len(hold_list.holds)} (worst first, then oldest)")
-    for col in ("#", "risk", "panel", "lot", "A/B", "FTB now um", "forecast um (95 %)",
-                "P(exceed)", "held since (UTC)", "held by"):
+#: The terminal shows a hold id by its first characters; commands take them (``dispose``).
+SHORT_ID = 8
+
+
+def print_holds(console: Console, hold_list: HoldList, *, closed: bool = False) -> None:
+    """The hold list: one table row per hold, worst first then oldest, then the reasons (and,
+    for closed holds, the disposition notes)."""
+    word = "Closed" if closed else "Open"
+    table = Table(title=f"{word} holds: {len(hold_list.holds)} (worst first, then oldest)")
+    columns = ["#", "hold id", "risk", "panel", "lot", "A/B", "FTB now um"]
+    # A closed hold shows its disposition in place of the forecast (which it no longer needs).
+    columns += (["held since (UTC)", "held by", "disposition", "by", "when (UTC)"] if closed
+                else ["forecast um (95 %)", "P(exceed)", "held since (UTC)", "held by"])
+    for col in columns:
         table.add_column(col, no_wrap=True)
     for i, h in enumerate(hold_list.holds, 1):
         band = h.forecast_band_um
         forecast = "-" if h.forecast_final_um is None else (
             f"{h.forecast_final_um:.1f}" + (f" ({band[0]:.0f}-{band[1]:.0f})" if band else ""))
-        table.add_row(
-            str(i), f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel, h.lot,
-            f"{h.layers_reached.get('A', 0)}/{h.layers_reached.get('B', 0)}",
-            f"{h.ftb_now_um:.1f}", forecast, _p(h.p_exceed),
-            h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by,
-        )
+        row = [
+            str(i), h.id[:SHORT_ID], f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel,
+            h.lot, f"{h.layers_reached.get('A', 0)}/{h.layers_reached.get('B', 0)}",
+            f"{h.ftb_now_um:.1f}",
+        ]
+        held = [h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by]
+        row += [*held, h.disposition or "-", h.disposed_by or "-",
+                h.disposed_at.strftime("%Y-%m-%d %H:%M") if h.disposed_at else "-"] if closed \
+            else [forecast, _p(h.p_exceed), *held]
+        table.add_row(*row)
     console.print(table)
     for i, h in enumerate(hold_list.holds, 1):
-        console.print(f"[bold]{i:>3}. {h.panel}[/bold] ({h.kind}, {h.rule}): {h.reason}")
+        console.print(f"[bold]{i:>3}. {h.panel}[/bold] (hold {h.id}; {h.kind}, {h.rule}): "
+                      f"{escape(h.reason)}", soft_wrap=True)
+        if closed and h.disposition_note:
+            console.print(f"     {h.disposition}: {escape(h.disposition_note)}", soft_wrap=True)
     console.print(f"\n[italic]{CAUTION}[/italic]")
 
 
@@ -76,4 +93,4 @@ def wide_console(stderr: bool = False) -> Console:
     import sys
 
     stream = sys.stderr if stderr else sys.stdout
-    return Console(stderr=stderr, width=None if stream.isatty() else 160)
+    return Console(stderr=stderr, width=None if stream.isatty() else 200)

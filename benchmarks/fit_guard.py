@@ -173,7 +173,7 @@ def post_share(posts: int) -> None:
               f"{1e3 * spent['capture_all'] / n:.2f} ms a post, "
               f"{spent['capture_all'] / total:.1%} of the POST "
               f"({spent['capture_all'] / spent['accept']:.1%} of measurements.accept)")
-        db.dispose()
+        db.close()
 
 
 def main() -> None:

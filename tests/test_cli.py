@@ -91,3 +91,76 @@ def test_demo_prints_the_pages_address_and_a_key_per_role(tmp_path):
     for role in ("tool", "engineer", "supervisor", "admin"):
         assert any(line.split()[:1] == [role] and "sl_" in line
                    for line in r.output.splitlines()), role
+
+
+def test_supervisor_holds_and_disposes_from_the_terminal(env):
+    r = CliRunner().invoke(cli, ["hold", "P1", "--reason", "suspect [bold]lamination",
+                                 "--by", "Shift lead A"])
+    assert r.exit_code == 0, r.output
+    hold_id = r.stdout.split()[1]
+    r = CliRunner().invoke(cli, ["holds"])
+    assert r.exit_code == 0 and "Open holds: 1" in r.stdout and hold_id[:8] in r.stdout
+    assert "suspect [bold]lamination" in r.stdout  # text as typed, not markup
+    r = CliRunner().invoke(cli, ["dispose", hold_id[:8], "--action", "release",
+                                 "--note", "re-inspected, fine", "--by", "Shift lead A"])
+    assert r.exit_code == 0, r.output
+    assert f"hold {hold_id} on P1 closed: release by cli: Shift lead A" in r.stdout
+    r = CliRunner().invoke(cli, ["holds", "--state", "closed"])
+    assert r.exit_code == 0 and "Closed holds: 1" in r.stdout
+    for shown in ("release", "cli: Shift lead A", "re-inspected, fine", hold_id[:8]):
+        assert shown in r.stdout, shown
+    from app.services import audit
+
+    actions = [e["action"] for e in audit.list_for(db=env, subject="P1")]
+    assert actions[-2:] == ["hold", "disposition_release"]
+    again = CliRunner().invoke(cli, ["dispose", hold_id[:8], "--action", "scrap", "--note",
+                                     "too late", "--by", "x"])
+    assert again.exit_code == 2 and "no open hold" in again.stderr
+    bad = CliRunner().invoke(cli, ["hold", "P1", "--reason", "x", "--by", "y"])
+    assert bad.exit_code == 2 and "--reason" in bad.stderr and "Traceback" not in bad.output
+
+
+def test_commands_name_the_database_and_never_create_one_by_accident(tmp_path, monkeypatch):
+    import sqlite3
+
+    monkeypatch.delenv("STACKLEDGER_DATABASE_URL", raising=False)
+    monkeypatch.chdir(tmp_path)
+    get_settings.cache_clear()
+    for args in (["holds"], ["panel", "P1"], ["import", __file__], ["key", "create", "--role",
+                                                                    "tool", "--label", "x"]):
+        r = CliRunner().invoke(cli, args)
+        assert r.exit_code == 2, (args, r.output)
+        assert "no database at" in r.stderr and "stackledger db upgrade" in r.stderr
+        assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.output
+    assert not (tmp_path / "stackledger.db").exists()
+    sqlite3.connect(tmp_path / "empty.db").close()
+    r = CliRunner().invoke(cli, ["holds", "--database", "empty.db"])
+    assert r.exit_code == 2 and "has no stackledger schema" in r.stderr
+    r = CliRunner().invoke(cli, ["db", "upgrade", "--database", "fresh.db"])
+    assert r.exit_code == 0, r.output
+    r = CliRunner().invoke(cli, ["holds", "--database", str(tmp_path / "fresh.db")])
+    assert r.exit_code == 0 and "Open holds: 0" in r.stdout
+    r = CliRunner().invoke(cli, ["holds"], env={"STACKLEDGER_DATABASE_URL":
+                                                f"sqlite:///{tmp_path / 'fresh.db'}"})
+    assert r.exit_code == 0 and "Open holds: 0" in r.stdout
+    get_settings.cache_clear()
+
+
+def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
+    rows = [f"P1,{layer},A,tool,EXP-T1,2026-11-02T0{layer}:00:00Z,{x},{y},20,0\n"
+            for layer in (1, 2) for x in (-200, 0, 200) for y in (-200, 0, 200)]
+    path = tmp_path / "m.csv"
+    path.write_text(HEADER + "".join(rows), encoding="utf-8")
+    assert CliRunner().invoke(cli, ["import", str(path)]).exit_code == 0
+    hold_id = CliRunner().invoke(cli, ["holds", "--csv"]).stdout.splitlines()[1].split(",")[-1]
+    hold_id = hold_id.strip('"')
+    missing = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--note",
+                                       "strip layer 2", "--by", "lead"])
+    assert missing.exit_code == 2 and "layer and the side" in missing.stderr
+    r = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--layer", "2",
+                                 "--side", "A", "--note", "strip layer 2", "--by", "lead"])
+    assert r.exit_code == 0, r.output
+    assert "layer 2 side A set aside" in r.stdout
+    r = CliRunner().invoke(cli, ["panel", "P1"])
+    # Layer 2 A (+20 um) set aside: the FTB is layer 1's 20 um alone.
+    assert "layers A [1]" in r.stdout and "FTB worst 20.0 um" in r.stdout

@@ -19,7 +19,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from app.api.problems import problem_response, refused
 from app.config import get_settings
-from app.services import keys, metrics
+from app.services import keys
 from app.services.rejections import MAX_KEPT_BYTES
 
 SPOOL_BYTES = 8 * 1024 * 1024
@@ -45,7 +45,7 @@ class BodyCapture:
             label = await run_in_threadpool(keys.label_for, db=scope["app"].state.db,
                                             authorization=_authorization(scope))
             if label == keys.NO_VALID_KEY:
-                metrics.count_anonymous_refusal()
+                scope["app"].state.request_metrics.count_anonymous_refusal()
                 response = problem_response(
                     Request(scope), status=401, title="Not authenticated",
                     slug="unauthenticated",

@@ -18,7 +18,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from app.errors import DomainError, FieldError
-from app.services import keys, metrics, rejections
+from app.services import keys, rejections
 
 log = logging.getLogger("stackledger")
 
@@ -95,7 +95,7 @@ def _keep_rejected(request: Request, status: int, detail: str, errors: list[Fiel
         label = request.scope.get("stackledger.key_label") or keys.label_for(
             db=db, authorization=request.headers.get("authorization"))
         if label == keys.NO_VALID_KEY:
-            metrics.count_anonymous_refusal()
+            request.app.state.request_metrics.count_anonymous_refusal()
             return
         raw: bytes = request.scope.get("stackledger.body", b"")
         rejections.record(
@@ -115,6 +115,21 @@ def _pointer(loc: tuple[Any, ...]) -> str:
     return f"{where}:/" + "/".join(parts) if where != "body" else "/" + "/".join(parts)
 
 
+def _malformed_json(request: Request, error: dict[str, Any]) -> FieldError:
+    """A body that is not JSON: where, in lines and columns of the body as sent (the parser
+    gives a character offset, which is not a JSON pointer: there is no document to point into)."""
+    loc = error.get("loc", ())
+    offset = loc[1] if len(loc) > 1 and isinstance(loc[1], int) else None
+    why = str((error.get("ctx") or {}).get("error", "not valid JSON"))
+    if offset is None:
+        return FieldError(message=f"the body is not valid JSON: {why}")
+    before = bytes(request.scope.get("stackledger.body", b"")).decode("utf-8", "replace")[:offset]
+    line = before.count("\n") + 1
+    column = offset - (before.rfind("\n") + 1) + 1
+    return FieldError(message=f"the body is not valid JSON at line {line}, column {column} "
+                              f"(character {offset + 1}): {why}")
+
+
 def install(app: FastAPI) -> None:
     @app.exception_handler(DomainError)
     async def _domain(request: Request, exc: DomainError) -> JSONResponse:
@@ -124,14 +139,16 @@ def install(app: FastAPI) -> None:
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
         errors = [
-            FieldError(message=str(e.get("msg", "invalid")), pointer=_pointer(tuple(e["loc"])))
+            _malformed_json(request, e) if e.get("type") == "json_invalid"
+            else FieldError(message=str(e.get("msg", "invalid")),
+                            pointer=_pointer(tuple(e["loc"])))
             for e in exc.errors()
         ]
         first = errors[0] if errors else FieldError(message="invalid request")
+        where = f" at {first.pointer}" if first.pointer else ""
         return await refused(
             request, status=422, title="Invalid input", slug="invalid-input",
-            detail=f"{len(errors)} problem(s) in the request; first at {first.pointer}: "
-                   f"{first.message}",
+            detail=f"{len(errors)} problem(s) in the request; first{where}: {first.message}",
             errors=errors,
         )
 

@@ -7,11 +7,13 @@ import csv
 import json
 from collections.abc import Callable
 from pathlib import Path
+from typing import Final
 
 from rich.console import Console
 from sqlalchemy import select
 
 from app.db import Database
+from app.overlay.risk import severity
 from app.reports import print_closest, print_holds
 from app.schemas.panels import PanelCreate, PanelRead
 from app.schemas.products import ProductCreate
@@ -39,7 +41,15 @@ def load_into(db: Database, *, load: Callable[[Database], None] | None = None) -
     return {role: keys.create(db=db, role=role, label=f"demo {role}")[0] for role in DEMO_ROLES}
 
 
+#: How the demo's first table is ordered, said under it.
+CLOSEST_ORDER: Final = (
+    "Order: risk level first (over_limit, at_risk, watch, clear), so no panel already over a "
+    "limit is left out; within a level, the larger of FTB now / FTB limit and P(exceed).")
+
+
 def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]:
+    """The ``n`` panels nearest their limits, in the order of ``CLOSEST_ORDER``: a panel over
+    its L2L or resistance limit can have a small FTB and P(exceed), yet it comes first."""
     with db.transaction() as session:
         limits = {p.code: p.ftb_limit_um for p in session.scalars(select(Product))}
     page = panels.list_panels(db=db, limit=500)
@@ -53,7 +63,7 @@ def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]
         ratio = p.ftb.worst_um / limits[p.product]
         return max(ratio, p.forecast.p_exceed if p.forecast else 0.0)
 
-    items.sort(key=closeness, reverse=True)
+    items.sort(key=lambda p: (severity(p.risk), closeness(p)), reverse=True)
     return [(p, limits[p.product]) for p in items[:n]]
 
 
@@ -67,7 +77,8 @@ def load_demo(path: Path, *, console: Console,
     try:
         upgrade(db.engine)
         demo_keys = load_into(db, load=load)
-        print_closest(console, closest_to_limit(db), "Panels closest to their FTB limit")
+        print_closest(console, closest_to_limit(db), "Panels nearest their limits")
+        console.print(CLOSEST_ORDER)
         print_holds(console, holds.list_all_holds(db=db, state="open"))
         console.print("\nDemo keys (use as 'Authorization: Bearer <key>'):")
         for role, key in demo_keys.items():

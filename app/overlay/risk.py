@@ -187,10 +187,11 @@ def _drift_reason(side: str, trend: SideTrend) -> str:
 def _remaining_phrase(forecast: Forecast) -> str:
     a, b = forecast.trend_a, forecast.trend_b
     n_a, n_b = len(a.remaining_layers), len(b.remaining_layers)
+    verb = "remains" if n_a == 1 else "remain"  # the verb agrees with side A's count, said first
     if n_a == n_b:
-        text = f"{_layers(n_a)} remain on each side"
+        text = f"{_layers(n_a)} {verb} on each side"
     else:
-        text = f"{_layers(n_a)} remain on side A and {n_b} on side B"
+        text = f"{_layers(n_a)} {verb} on side A and {n_b} on side B"
     missing = []
     for side, trend in (("A", a), ("B", b)):
         top = max(trend.observed_layers, default=0)

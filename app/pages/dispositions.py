@@ -22,8 +22,8 @@ def _data(action: str, note: str, rework_side: str, rework_layer: str) -> Dispos
     try:
         return DispositionCreate(
             action=action, note=note,
-            rework_side=(rework_side or None) if action == "rework" else None,
-            rework_layer=(int(rework_layer) if rework_layer.strip() else None)
+            side=(rework_side or None) if action == "rework" else None,
+            layer=(int(rework_layer) if rework_layer.strip() else None)
             if action == "rework" else None,
         )
     except (ValidationError, ValueError) as exc:

@@ -11,6 +11,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.figures import PointOut, UmPair
 from app.schemas.panels import RiskLevel
 
 Side = Literal["A", "B"]
@@ -69,7 +70,7 @@ class FingerprintReport(BaseModel):
     panels: int
     rows: list[FingerprintRow]
     what_if: list[ToolWhatIf]
-    worst_point_mm: tuple[float, float] | None
+    worst_point_mm: PointOut | None
     note: str = CAUTION
 
 
@@ -84,7 +85,7 @@ class Contribution(BaseModel):
 class LotToolShares(BaseModel):
     lot: str
     panels: int
-    mean_ftb_um: tuple[float, float]
+    mean_ftb_um: UmPair
     by_tool: list[Contribution]
 
 
@@ -99,8 +100,8 @@ class VarianceComponent(BaseModel):
 class ShareReport(BaseModel):
     product: str
     panels: int
-    worst_point_mm: tuple[float, float]
-    mean_ftb_um: tuple[float, float]
+    worst_point_mm: PointOut
+    mean_ftb_um: UmPair
     ftb_3sigma_um: float
     by_layer_side: list[Contribution]
     by_tool: list[Contribution]
@@ -164,7 +165,8 @@ class DriftReport(BaseModel):
 
 class FtbDistribution(BaseModel):
     panels: int
-    by_risk: dict[RiskLevel, int]
+    by_risk: dict[RiskLevel, int] = Field(
+        examples=[{"clear": 20, "watch": 3, "at_risk": 1, "over_limit": 0}])
     ftb_mean_um: float | None
     ftb_sigma_um: float | None
     ftb_p50_um: float | None

@@ -3,8 +3,9 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from app.schemas.figures import LayersReached, Probability, Um, UmBand
 from app.schemas.text import Note
 
 CAUTION = (
@@ -21,16 +22,36 @@ class HoldCreate(BaseModel):
 
 
 class DispositionCreate(BaseModel):
+    """Release, scrap or rework. Rework names the layer and side that are stripped and built
+    again: that layer's measurement in force is set aside (superseded by the rework), the
+    panel's FTB, forecast and risk are recomputed without it (the layer counts as still to come),
+    and the layer's next measurement takes its place through the normal upload."""
+
     model_config = ConfigDict(extra="forbid")
 
     action: Literal["release", "scrap", "rework"]
+    layer: int | None = Field(default=None, ge=1, le=40,
+                              description="Rework only, required: the layer reworked.")
+    side: Literal["A", "B"] | None = Field(default=None,
+                                           description="Rework only, required: its side.")
     note: Note = Field(description="Required: why, and on whose authority under the fab's "
                        "quality procedure.")
-    rework_side: Literal["A", "B"] | None = Field(
-        default=None, description="Rework only: the side of the layer to redo (default: the "
-        "last layer built).")
-    rework_layer: int | None = Field(default=None, ge=1, le=64, description="Rework only: the "
-                                     "layer to redo; its re-measurement supersedes the old one.")
+
+    @model_validator(mode="after")
+    def _rework_names_its_layer(self) -> DispositionCreate:
+        named = self.layer is not None or self.side is not None
+        if self.action == "rework" and (self.layer is None or self.side is None):
+            raise ValueError("rework needs the layer and the side reworked ('layer', 'side')")
+        if self.action != "rework" and named:
+            raise ValueError(f"'layer' and 'side' are for rework only, not {self.action}")
+        return self
+
+
+class ReworkRead(BaseModel):
+    side: Literal["A", "B"]
+    layer: int
+    set_aside_measurement: str = Field(description="The measurement superseded by the rework; "
+                                       "the layer's next measurement takes its place.")
 
 
 class HoldRead(BaseModel):
@@ -43,12 +64,12 @@ class HoldRead(BaseModel):
     rule: str
     risk: str
     severity: int
-    layers_reached: dict[str, int]
-    ftb_now_um: float
-    ftb_limit_um: float = Field(description="The product's FTB limit.")
-    forecast_final_um: float | None
-    forecast_band_um: tuple[float, float] | None
-    p_exceed: float | None
+    layers_reached: LayersReached
+    ftb_now_um: Um
+    ftb_limit_um: Um = Field(description="The product's FTB limit.")
+    forecast_final_um: Um | None
+    forecast_band_um: UmBand | None = Field(examples=[[41.0, 77.5]])
+    p_exceed: Probability | None
     reason: str
     held_since: datetime
     held_by: str
@@ -56,6 +77,7 @@ class HoldRead(BaseModel):
     disposition_note: str | None = None
     disposed_at: datetime | None = None
     disposed_by: str | None = None
+    rework: ReworkRead | None = None
 
 
 class HoldList(BaseModel):

@@ -5,6 +5,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.figures import PointOut, Ppm, Um, Urad
 from app.schemas.panels import PanelRead
 
 # The schema gives shape and types only. What a value must be (side A or B, a time with a zone,
@@ -53,24 +54,24 @@ class FitRead(BaseModel):
     requested: str
     note: str | None
     n_sites: int
-    tx_um: float
-    ty_um: float
-    sx_ppm: float
-    sy_ppm: float
-    ox_urad: float
-    oy_urad: float
+    tx_um: Um
+    ty_um: Um
+    sx_ppm: Ppm
+    sy_ppm: Ppm
+    ox_urad: Urad
+    oy_urad: Urad
     kx_um_per_mm2: float
     ky_um_per_mm2: float
-    rotation_urad: float
-    nonorthogonality_urad: float
-    mean_x_um: float
-    mean_y_um: float
-    sigma_x_um: float
-    sigma_y_um: float
-    m3s_x_um: float
-    m3s_y_um: float
-    max_residual_um: float
-    max_residual_at_mm: tuple[float, float]
+    rotation_urad: Urad
+    nonorthogonality_urad: Urad
+    mean_x_um: Um
+    mean_y_um: Um
+    sigma_x_um: Um
+    sigma_y_um: Um
+    m3s_x_um: Um
+    m3s_y_um: Um
+    max_residual_um: Um
+    max_residual_at_mm: PointOut
     leverage: float | None = Field(
         default=None,
         description="Largest leverage of the fitted model over the product's check points: "

@@ -5,6 +5,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas.figures import PointOut, Ppm, Probability, Um, UmBand, UmPair, Urad
 from app.schemas.text import Identifier, Name
 from app.services.lifecycle import PanelStatus
 
@@ -27,14 +28,14 @@ class SidesInt(BaseModel):
 class FtbPoint(BaseModel):
     x_mm: float
     y_mm: float
-    dx_um: float
-    dy_um: float
-    length_um: float
+    dx_um: Um
+    dy_um: Um
+    length_um: Um
 
 
 class FtbRead(BaseModel):
-    worst_um: float
-    worst_at_mm: tuple[float, float]
+    worst_um: Um
+    worst_at_mm: PointOut
     points: list[FtbPoint]
 
 
@@ -44,10 +45,11 @@ class RemainingRead(BaseModel):
 
 
 class ForecastRead(BaseModel):
-    final_worst_um: float = Field(description="Expected worst FTB over the check points at the "
+    final_worst_um: Um = Field(description="Expected worst FTB over the check points at the "
                                   "last layer.")
-    band_um: tuple[float, float] = Field(description="95 % band of the final worst FTB.")
-    p_exceed: float = Field(description="Probability that the final worst FTB exceeds the limit.")
+    band_um: UmBand = Field(description="95 % band of the final worst FTB.")
+    p_exceed: Probability = Field(
+        description="Probability that the final worst FTB exceeds the limit.")
     remaining: RemainingRead
     method: str
 
@@ -62,7 +64,7 @@ class PanelRead(BaseModel):
         description="Layers below the highest measured one that have no measurement yet."
     )
     ftb: FtbRead
-    l2l_worst_um: float
+    l2l_worst_um: Um
     risk: RiskLevel
     reasons: list[str]
     forecast: ForecastRead | None
@@ -82,21 +84,21 @@ class StackLayerRead(BaseModel):
     measured_at: datetime
     model: str
     note: str | None
-    tx_um: float
-    ty_um: float
-    sx_ppm: float
-    sy_ppm: float
-    rotation_urad: float
-    nonorthogonality_urad: float
+    tx_um: Um
+    ty_um: Um
+    sx_ppm: Ppm
+    sy_ppm: Ppm
+    rotation_urad: Urad
+    nonorthogonality_urad: Urad
     kx_um_per_mm2: float
     ky_um_per_mm2: float
-    sigma_x_um: float
-    sigma_y_um: float
-    l2l_worst_um: float
-    cumulative_ftb_worst_um: float = Field(
+    sigma_x_um: Um
+    sigma_y_um: Um
+    l2l_worst_um: Um
+    cumulative_ftb_worst_um: Um = Field(
         description="Worst FTB over the check points using layers 1..layer of both sides."
     )
-    side_position_um: tuple[float, float] = Field(
+    side_position_um: UmPair = Field(
         description="This side's layers 1..layer summed at the worst check point (worst_at_mm): "
         "where the side's top layer sits relative to the core there, panel frame."
     )
@@ -112,7 +114,7 @@ class StackLayerRead(BaseModel):
         description="Largest probability over the check points that a via misses part of its "
         "pad: P(|L2L| > capture margin).",
     )
-    p_miss_at_mm: tuple[float, float] | None = None
+    p_miss_at_mm: PointOut | None = None
     overhang_um: float | None = Field(
         default=None,
         description="Worst L2L minus the capture margin: > 0, the via runs past its pad edge.",
@@ -132,7 +134,7 @@ class StackedViaRead(BaseModel):
     reason to hold (it is small beside the spread of plated copper)."""
 
     lateral_um: float = Field(description="sum over interfaces of |L2L| at the worst point.")
-    at_mm: tuple[float, float]
+    at_mm: PointOut
     extra_ohm: float = Field(description="rho * lateral / (pad width * copper thickness).")
     chain_ohm: float | None = Field(description="The chain's own resistance (needs via depth).")
     relative: float | None = Field(description="extra_ohm / chain_ohm.")
@@ -141,9 +143,9 @@ class StackedViaRead(BaseModel):
 class StackRead(BaseModel):
     serial: str
     frame: Literal["panel"] = "panel"
-    worst_at_mm: tuple[float, float] = Field(description="The check point of the worst FTB now.")
+    worst_at_mm: PointOut = Field(description="The check point of the worst FTB now.")
     layers: list[StackLayerRead]
-    residual_sigma_um: tuple[float, float]
-    linear_worst_case_um: float = Field(description="Planning figure, not the estimate.")
-    rss_um: float = Field(description="Planning figure, not the estimate.")
+    residual_sigma_um: UmPair
+    linear_worst_case_um: Um = Field(description="Planning figure, not the estimate.")
+    rss_um: Um = Field(description="Planning figure, not the estimate.")
     stacked_via: StackedViaRead | None = None

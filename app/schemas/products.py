@@ -1,18 +1,22 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Annotated, Literal
+from typing import Annotated, Final, Literal
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, model_validator
 
 from app.overlay.resistance import RHO_COPPER_20C
+from app.schemas.figures import PointIn, PointOut
 from app.schemas.text import Identifier, single_line
+
+PANEL_MIN_MM: Final = 20.0
+PANEL_MAX_MM: Final = 2000.0
 
 
 class ViaLayer(BaseModel):
     """Via and pad diameters of one layer whose vias differ from the product's usual pair."""
 
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
 
     layer: int = Field(ge=1, le=40, description="Layer k: its vias land on layer k-1's pads.")
     via_diameter_um: float = Field(gt=0, le=1000)
@@ -75,22 +79,24 @@ class Vias(BaseModel):
 
 
 class ProductCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", allow_inf_nan=False)
 
     code: Identifier
     name: Annotated[str, AfterValidator(single_line)] = Field(default="", max_length=200)
     layers_per_side: int = Field(ge=1, le=40)
     flip_axis: Literal["x", "y"]
-    panel_width_mm: float = Field(gt=0, le=2000)
-    panel_height_mm: float = Field(gt=0, le=2000)
-    ftb_limit_um: float = Field(gt=0)
-    l2l_limit_um: float = Field(gt=0)
+    # A panel from 20 mm (a coupon) to 2 m a side: beyond either it is a typing error.
+    panel_width_mm: float = Field(ge=PANEL_MIN_MM, le=PANEL_MAX_MM)
+    panel_height_mm: float = Field(ge=PANEL_MIN_MM, le=PANEL_MAX_MM)
+    ftb_limit_um: float = Field(gt=0, le=10_000)
+    l2l_limit_um: float = Field(gt=0, le=10_000)
     model_terms: Literal[6, 8] = 6
-    check_points_mm: list[tuple[float, float]] | None = Field(
+    check_points_mm: list[PointIn] | None = Field(
         default=None,
         min_length=1,
         max_length=400,
         description="Points where FTB is evaluated; default a 5 x 5 grid over the central 90 %.",
+        examples=[[[-229.5, -231.75], [0.0, 0.0], [229.5, 231.75]]],
     )
     p_watch: float = Field(default=0.05, gt=0, lt=1)
     p_at_risk: float = Field(default=0.20, gt=0, lt=1)
@@ -126,8 +132,12 @@ class ProductRead(BaseModel):
     ftb_limit_um: float
     l2l_limit_um: float
     model_terms: int
-    check_points_mm: list[tuple[float, float]]
+    check_points_mm: list[PointOut]
     p_watch: float
     p_at_risk: float
     vias: Vias | None
     created_at: datetime
+
+
+class ProductList(BaseModel):
+    items: list[ProductRead]

@@ -5,9 +5,14 @@
 - A released panel is not held again for the same rule unless its p_exceed or its current FTB
   has become worse than at release.
 - Manual hold: an engineer, with a reason.
-- Disposition (supervisor): release, scrap, or rework of the last layer (its re-measurement then
-  supersedes the old one through the normal upload). A note is required; every change is in the
-  audit log with who, when, what and the figures.
+- Disposition (supervisor): release, scrap, or rework of a named layer and side. Rework sets
+  that layer's measurement in force aside (its ``superseded_by`` is the hold's id: superseded by
+  the rework, kept like every superseded measurement), recomputes the panel's FTB, forecast and
+  risk without it, so the layer counts as still to come, and puts the panel back in process;
+  the layer's next measurement takes its place through the normal upload. The recomputed risk
+  does not hold the panel again in the same step (the supervisor has just decided); the next
+  measurement is judged by the usual rules. A note is required; every change is in the audit log
+  with who, when, what and the figures (after the rework too).
 
 The tool supports these decisions; they rest with the fab's own quality procedures and
 qualified engineers (``app.schemas.holds.CAUTION``).
@@ -18,19 +23,20 @@ from __future__ import annotations
 import uuid
 from typing import Any, Final
 
-from sqlalchemy import ColumnElement, Row, Select, and_, or_, select
+from sqlalchemy import ColumnElement, Row, Select, and_, or_, select, update
 from sqlalchemy.orm import Session
 
 from app.db import Database
-from app.errors import Conflict, InvalidInput, NotFound
+from app.errors import Conflict, FieldError, InvalidInput, NotFound
 from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
-from app.services import audit
+from app.services import audit, state
 from app.services import cursor as cursors
+from app.services.history import product_history
 from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
-from app.store.tables import Hold, Lot, Panel, PanelState, Product, utcnow
+from app.store.tables import Hold, Lot, Measurement, Panel, PanelState, Product, utcnow
 
 HOLDING_LEVELS: Final = ("at_risk", "over_limit")
 AUTOMATIC: Final = "stackledger (automatic)"
@@ -120,6 +126,7 @@ def _to_read(row: Row[Any]) -> HoldRead:
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
         disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,
+        rework=hold.figures.get("rework") if hold.disposition == "rework" else None,
     )
 
 
@@ -162,26 +169,33 @@ def _all_layers_on(session: Session, panel: Panel) -> bool:
     return state is not None and len(state.layers_a) == full and len(state.layers_b) == full
 
 
-def _last_layer(state: PanelState | None) -> dict[str, int]:
-    if state is None:
-        return {}
-    a, b = max(state.layers_a, default=0), max(state.layers_b, default=0)
-    # The last layer built is the higher one; at a balanced pair, side B follows side A.
-    return {"side": "B", "layer": b} if b >= a and b else {"side": "A", "layer": a}
+def _set_aside(session: Session, *, hold: Hold, side: str, layer: int) -> dict[str, Any]:
+    """Supersede the measurement in force of ``layer`` and ``side`` by the rework ``hold``."""
+    measurement = session.scalars(select(Measurement).where(
+        Measurement.panel == hold.panel, Measurement.side == side, Measurement.layer == layer,
+        Measurement.superseded_by.is_(None))).one_or_none()
+    if measurement is None:
+        raise InvalidInput(
+            f"panel '{hold.panel}' has no measurement in force of layer {layer} side {side}; "
+            "name a measured layer to rework", [FieldError(message="no measurement in force",
+                                                           pointer="/layer")])
+    measurement.superseded_by = hold.id
+    return {"side": side, "layer": layer, "set_aside_measurement": str(measurement.id)}
 
 
-def _rework_target(session: Session, panel: Panel, state: PanelState | None,
-                   data: DispositionCreate) -> dict[str, Any]:
-    """The side and layer to redo: as named, else the last layer built."""
-    if data.rework_side is None and data.rework_layer is None:
-        return _last_layer(state)
-    if data.rework_side is None or data.rework_layer is None:
-        raise InvalidInput("a rework names both the side and the layer, or neither")
-    full = session.get_one(Product, panel.product_id).layers_per_side
-    if data.rework_layer > full:
-        raise InvalidInput(f"rework_layer {data.rework_layer} is beyond the product's "
-                           f"{full} layers a side")
-    return {"side": data.rework_side, "layer": data.rework_layer}
+def _recompute(db: Database, session: Session, panel: Panel) -> PanelState:
+    """The panel's estimate without the measurement a rework set aside (the layer counts as
+    still to come). Setting a measurement aside changes what the product history learns, so
+    its revision and cut-off move too (``app.services.history``)."""
+    session.flush()
+    product = session.get_one(Product, panel.product_id)
+    estimate = state.compute(serial=panel.serial, product=product,
+                             layers=state.current_layers(session, panel.serial),
+                             histories=product_history(db, session, product=product))
+    panel.revision += 1
+    session.execute(update(Product).where(Product.id == product.id).values(
+        history_revision=Product.history_revision + 1, history_at=utcnow()))
+    return state.store(session, serial=panel.serial, estimate=estimate)
 
 
 def dispose(
@@ -192,8 +206,6 @@ def dispose(
         key = uuid.UUID(hold_id)
     except ValueError as exc:
         raise InvalidInput(f"'{hold_id}' is not a hold id") from exc
-    if data.action != "rework" and (data.rework_side or data.rework_layer):
-        raise InvalidInput("rework_side and rework_layer go with a rework only")
     with db.transaction() as session:
         hold = session.scalars(select(Hold).where(Hold.id == key)).one_or_none()
         if hold is None:
@@ -218,11 +230,14 @@ def dispose(
         if data.action == "release":
             hold.figures = {**hold.figures, "at_release": figures}
         elif data.action == "rework":
-            details["rework"] = _rework_target(session, panel, state, data)
+            assert data.side is not None and data.layer is not None  # DispositionCreate checks
+            details["rework"] = _set_aside(session, hold=hold, side=data.side, layer=data.layer)
             hold.figures = {**hold.figures, "rework": details["rework"]}
         panel.status = next_status(panel.status, event,
                                    all_layers_on=_all_layers_on(session, panel),
                                    serial=panel.serial)
+        if data.action == "rework":
+            details["after_rework"] = _figures(_recompute(db, session, panel))
         audit.record(session, actor=principal.label, action=f"disposition_{data.action}",
                      subject=hold.panel, details=details)
         session.flush()
@@ -272,6 +287,21 @@ def list_holds(
                         next_cursor=_cursor(rows[limit - 1][0]) if more else None)
 
 
+def open_hold_id(*, db: Database, id_or_prefix: str) -> str:
+    """The full id of the open hold whose id is, or starts with, ``id_or_prefix`` (the terminal
+    table shows the first 8 characters); NotFound or Conflict when none or several match."""
+    wanted = id_or_prefix.strip().lower()
+    if len(wanted) < 4:
+        raise InvalidInput("give at least the first 4 characters of the hold id")
+    found = [h.id for h in list_all_holds(db=db, state="open").holds if h.id.startswith(wanted)]
+    if not found:
+        raise NotFound(f"no open hold has an id starting with '{id_or_prefix}'")
+    if len(found) > 1:
+        raise Conflict(f"{len(found)} open holds have ids starting with '{id_or_prefix}'; "
+                       "give more characters")
+    return found[0]
+
+
 def list_all_holds(
     *, db: Database, state: str | None = "open", product: str | None = None,
     lot: str | None = None, rule: str | None = None,
@@ -314,10 +344,14 @@ def review_disposition(*, db: Database, hold_id: str, data: DispositionCreate) -
     hold = get(db=db, hold_id=hold_id)
     if hold.state != "open":
         raise Conflict(f"hold '{hold_id}' was already closed ({hold.disposition})")
-    if data.action != "rework" and (data.rework_side or data.rework_layer):
-        raise InvalidInput("rework_side and rework_layer go with a rework only")
     if data.action == "rework":
         with db.reading() as session:
-            panel = session.get_one(Panel, hold.panel)
-            _rework_target(session, panel, session.get(PanelState, hold.panel), data)
+            in_force = session.scalars(select(Measurement.id).where(
+                Measurement.panel == hold.panel, Measurement.side == data.side,
+                Measurement.layer == data.layer, Measurement.superseded_by.is_(None))).first()
+        if in_force is None:
+            raise InvalidInput(
+                f"panel '{hold.panel}' has no measurement in force of layer {data.layer} side "
+                f"{data.side}; name a measured layer to rework",
+                [FieldError(message="no measurement in force", pointer="/layer")])
     return hold

@@ -12,7 +12,7 @@ from app.db import Database
 from app.errors import Conflict, NotFound
 from app.overlay.capture import ViaGeometry
 from app.overlay.stack import default_check_points
-from app.schemas.products import ProductCreate, ProductRead, Vias
+from app.schemas.products import ProductCreate, ProductList, ProductRead, Vias
 from app.services import audit
 from app.store.tables import Product, utcnow
 from app.store.upsert import insert_ignore
@@ -111,6 +111,13 @@ def create(*, db: Database, data: ProductCreate, actor: str) -> tuple[bool, Prod
         audit.record(session, actor=actor, action="product_create", subject=data.code,
                      details=fields)
         return True, to_read(product)
+
+
+def list_products(*, db: Database) -> ProductList:
+    """Every product, by code (a fab runs tens of products, not thousands: no pages)."""
+    with db.reading() as session:
+        return ProductList(items=[to_read(p) for p in session.scalars(
+            select(Product).order_by(Product.code))])
 
 
 def get(*, db: Database, code: str) -> ProductRead:

@@ -134,22 +134,57 @@ def test_disposition_roles_notes_and_audit(setup):
     assert entries[1]["details"]["p_exceed"] >= 0.2
 
 
-def test_rework_names_the_last_layer_and_the_remeasurement_supersedes(setup):
+def test_rework_sets_the_named_layer_aside_and_its_remeasurement_restores_it(setup):
     db, c, k = setup
     make_panel(db, "DRIFT")
     _drift(c, k, "DRIFT", 4)
     (hold,) = _open(c, k)
+    before = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
+    set_aside = next(layer["measurement_id"] for layer in c.get(
+        "/api/v1/panels/DRIFT/stack", headers=k.headers("engineer")).json()["layers"]
+        if (layer["side"], layer["layer"]) == ("B", 4))
     r = c.post(f"/api/v1/holds/{hold['id']}/disposition",
-               json={"action": "rework", "note": "strip and re-expose layer 4 B"},
+               json={"action": "rework", "layer": 4, "side": "B",
+                     "note": "strip and re-expose layer 4 B"},
                headers=k.headers("supervisor"))
-    assert r.status_code == 200
+    assert r.status_code == 200, r.text
+    assert r.json()["rework"] == {"side": "B", "layer": 4, "set_aside_measurement": set_aside}
+    # Worked by hand: A gives +3 a layer over 4 layers, B -3 over its remaining 3: FTB
+    # 12 - (-9) = 21 um, down from 24; layer 4 B is missing again and still to come.
+    after = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
+    assert before["ftb"]["worst_um"] == pytest.approx(24.0, abs=5e-4)
+    assert after["ftb"]["worst_um"] == pytest.approx(21.0, abs=5e-4)
+    assert after["layers"] == {"A": [1, 2, 3, 4], "B": [1, 2, 3]}
+    assert 4 in after["forecast"]["remaining"]["B"] and after["status"] == "in_process"
+    assert after["forecast"]["p_exceed"] != before["forecast"]["p_exceed"]
+    assert _open(c, k) == []  # not held again in the same step
     entry = audit.list_for(db=db, subject="DRIFT")[-1]
     assert entry["action"] == "disposition_rework"
-    assert entry["details"]["rework"] == {"side": "B", "layer": 4}
+    assert entry["details"]["rework"]["layer"] == 4
+    assert entry["details"]["after_rework"]["ftb_worst_um"] == pytest.approx(21.0, abs=1e-9)
     state = _post(c, k, "DRIFT", 4, "B", 3.0, minutes=3000)  # reworked: now back toward zero
-    assert state["ftb"]["worst_um"] == pytest.approx(18.0, abs=1e-6)
+    assert state["ftb"]["worst_um"] == pytest.approx(18.0, abs=5e-4)
+    assert state["layers"]["B"] == [1, 2, 3, 4]
     stack = c.get("/api/v1/panels/DRIFT/stack", headers=k.headers("engineer")).json()
     assert len([layer for layer in stack["layers"] if layer["side"] == "B"]) == 4
+
+
+@pytest.mark.parametrize("body,where", [
+    ({"action": "rework", "note": "strip it"}, "layer and the side"),
+    ({"action": "rework", "layer": 2, "note": "strip it"}, "layer and the side"),
+    ({"action": "release", "layer": 2, "side": "A", "note": "fine"}, "rework only"),
+    ({"action": "rework", "layer": 7, "side": "A", "note": "strip it"}, "no measurement in force"),
+    ({"action": "rework", "layer": 0, "side": "A", "note": "strip it"}, "greater than or equal"),
+])
+def test_rework_must_name_a_measured_layer_and_side(setup, body, where):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    _drift(c, k, "DRIFT", 4)
+    (hold,) = _open(c, k)
+    r = c.post(f"/api/v1/holds/{hold['id']}/disposition", json=body,
+               headers=k.headers("supervisor"))
+    assert r.status_code == 422 and where in r.text, r.text
+    assert len(_open(c, k)) == 1  # still open
 
 
 def test_manual_hold_needs_engineer_and_reason(setup):

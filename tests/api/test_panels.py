@@ -112,3 +112,13 @@ def test_risk_filter_finds_each_level(setup):
         for level in ("clear", "watch", "at_risk", "over_limit")}
     assert found == {"clear": ["NONE"], "watch": ["WATCH"], "at_risk": ["RISK"],
                      "over_limit": ["OVER"]}
+
+
+def test_product_list_by_code(setup):
+    db, c, k = setup
+    make_product(db, code="ALPHA", layers_per_side=4)
+    r = c.get("/api/v1/products", headers=k.headers("tool"))
+    assert r.status_code == 200
+    items = r.json()["items"]
+    assert [p["code"] for p in items] == ["ALPHA", "OTHER", "TESTPROD"]
+    assert items[0]["layers_per_side"] == 4 and len(items[2]["check_points_mm"]) == 25

@@ -16,6 +16,7 @@ MATRIX = [
     ("POST", "/api/v1/products", {"admin"},
      lambda: {"code": "NEWP", "layers_per_side": 4, "flip_axis": "x", "panel_width_mm": 500,
               "panel_height_mm": 500, "ftb_limit_um": 50, "l2l_limit_um": 12}),
+    ("GET", "/api/v1/products", ALL, None),
     ("GET", "/api/v1/products/TESTPROD", ALL, None),
     ("POST", "/api/v1/panels", ALL, lambda: {"serial": "P0001", "product": "TESTPROD",
                                              "lot": "LOT1"}),

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections import Counter
+from itertools import pairwise
 
 from app.demo.loader import closest_to_limit, load_into
 from app.demo.simulator import generate
@@ -24,5 +25,14 @@ def test_demo_shows_every_risk_level_and_holds_the_panels_made_risky(db, tmp_pat
     for serial in summary.over_limit:
         assert held[serial].risk == "over_limit"
         assert held[serial].rule in ("ftb_over_limit", "l2l_over_limit", "via_off_pad")
-    top = [p.serial for p, _ in closest_to_limit(db, n=10)]
-    assert set(summary.over_limit) & set(top)
+    over = [p.serial for p in page.items if p.risk == "over_limit"]
+    top = closest_to_limit(db, n=len(over) + 3)
+    # Every panel over a limit is listed, first, whatever its FTB share or P(exceed); within a
+    # level the larger of FTB/limit and P(exceed) comes first.
+    assert set(over) == {p.serial for p, _ in top[:len(over)]}
+    assert all(p.risk != "over_limit" for p, _ in top[len(over):])
+    for (a, limit_a), (b, limit_b) in pairwise(top):
+        if a.risk == b.risk:
+            near_a = max(a.ftb.worst_um / limit_a, a.forecast.p_exceed if a.forecast else 0)
+            near_b = max(b.ftb.worst_um / limit_b, b.forecast.p_exceed if b.forecast else 0)
+            assert near_a >= near_b

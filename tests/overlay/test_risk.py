@@ -288,3 +288,22 @@ def test_bad_figures_are_refused() -> None:
         run(ftb=float("nan"))
     with pytest.raises(OverlayInputError):
         run(l2l_a={1: float("inf")})
+
+
+@pytest.mark.parametrize(
+    ("observed_a", "observed_b", "phrase"),
+    [
+        (11, 11, "1 layer remains on each side"),
+        (10, 10, "2 layers remain on each side"),
+        (11, 9, "1 layer remains on side A and 3 on side B"),
+        (9, 11, "3 layers remain on side A and 1 on side B"),
+    ],
+)
+def test_remaining_layers_phrase_agrees_in_number(
+    observed_a: int, observed_b: int, phrase: str
+) -> None:
+    fc = forecast(0.3, trend_a=trend((3.0, 0.0), observed=observed_a),
+                  trend_b=trend((-3.0, 0.0), observed=observed_b))
+    text = " ".join(run(fc=fc).reasons)
+    assert phrase in text
+    assert "1 layer remain " not in text

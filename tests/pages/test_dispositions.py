@@ -57,7 +57,8 @@ def test_supervisor_reviews_then_confirms_each_disposition(db):
     assert sorted(e.action for e in trail) == [
         "disposition_release", "disposition_rework", "disposition_scrap"]
     rework = next(e for e in trail if e.action == "disposition_rework")
-    assert rework.details["rework"] == {"side": "A", "layer": 1}
+    assert {k: rework.details["rework"][k] for k in ("side", "layer")} == {"side": "A", "layer": 1}
+    assert rework.details["rework"]["set_aside_measurement"]  # the measurement set aside
     audit_page = c.get("/audit?actor=test+supervisor")
     assert audit_page.status_code == 200
     for serial in cases:
@@ -96,7 +97,7 @@ def test_post_without_csrf_is_refused_and_bad_forms_say_why(db):
     assert r.status_code == 422
     r = c.post(f"/holds/{hold.id}/disposition", data={"csrf": csrf, "step": "confirm",
                "action": "rework", "note": "redo it", "rework_side": "B", "rework_layer": "13"})
-    assert r.status_code == 422 and "beyond" in r.text
+    assert r.status_code == 422 and "no measurement in force of layer 13 side B" in r.text
     assert holds.get(db=db, hold_id=hold.id).state == "open"
     r = _review(c, hold, csrf, action="release", note="fine")
     assert r.status_code == 200

@@ -4,7 +4,7 @@ from fastapi import APIRouter, Response
 
 from app.api.deps import CreateProduct, DbDep, ReadProduct
 from app.api.problems import PROBLEM_RESPONSES
-from app.schemas.products import ProductCreate, ProductRead
+from app.schemas.products import ProductCreate, ProductList, ProductRead
 from app.services import products
 
 router = APIRouter(prefix="/api/v1/products", tags=["products"], responses=PROBLEM_RESPONSES)
@@ -21,6 +21,12 @@ def create_product(
     if not created:
         response.status_code = 200
     return product
+
+
+@router.get("", response_model=ProductList)
+def list_products(db: DbDep, _: ReadProduct) -> ProductList:
+    """Every product's settings, by code."""
+    return products.list_products(db=db)
 
 
 @router.get("/{code}", response_model=ProductRead)

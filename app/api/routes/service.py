@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 from fastapi.responses import JSONResponse, PlainTextResponse
 
 from app.api.deps import DbDep, Metrics
+from app.api.problems import PROBLEM_RESPONSES
 from app.services import metrics
 
 router = APIRouter(tags=["service"])
@@ -20,8 +21,10 @@ def health(db: DbDep) -> JSONResponse:
                         status_code=200 if ok else 503)
 
 
-@router.get("/metrics", response_class=PlainTextResponse)
-def prometheus(db: DbDep, _: Metrics) -> PlainTextResponse:
-    """Counters and gauges in the Prometheus text exposition format."""
-    return PlainTextResponse(metrics.exposition(db=db),
+@router.get("/metrics", response_class=PlainTextResponse, responses={
+    code: PROBLEM_RESPONSES[code] for code in (401, 403, 500)})
+def prometheus(request: Request, db: DbDep, _: Metrics) -> PlainTextResponse:
+    """Request counts and latencies, and store gauges, in the Prometheus text format."""
+    return PlainTextResponse(metrics.exposition(db=db,
+                                                requests=request.app.state.request_metrics),
                              media_type="text/plain; version=0.0.4; charset=utf-8")
