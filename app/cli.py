@@ -8,6 +8,7 @@ from typing import Annotated
 import typer
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
+from app.cli_analysis import analysis_cli
 from app.db import Database
 from app.errors import DomainError
 from app.reports import wide_console
@@ -18,6 +19,7 @@ db_cli = typer.Typer(help="Database schema.", no_args_is_help=True)
 key_cli = typer.Typer(help="API keys.", no_args_is_help=True)
 cli.add_typer(db_cli, name="db")
 cli.add_typer(key_cli, name="key")
+cli.add_typer(analysis_cli, name="analysis")
 err = wide_console(stderr=True)
 out = wide_console()
 
