@@ -186,6 +186,13 @@ def window_runs(session: Session, f: AnalysisFilter) -> tuple[ProductInfo, Runs]
     return info, _to_runs(rows)
 
 
+def whole_panels(f: AnalysisFilter) -> bool:
+    """The filter keeps every run of the panels it selects (no window, tool, side or layer), so
+    their stacks are the runs already read."""
+    return f.start is None and f.end is None and f.tool is None and f.side is None \
+        and f.layer is None
+
+
 def stacks(session: Session, info: ProductInfo, serials: Sequence[str]) -> Runs:
     """Every run in force of the given panels, whenever measured (their whole current stack)."""
     rows: list[Any] = []
