@@ -26,3 +26,4 @@ bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/core.py
 	$(BIN)/python benchmarks/ingest.py
 	$(BIN)/python benchmarks/holds.py
+	$(BIN)/python benchmarks/analysis.py

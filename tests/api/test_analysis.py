@@ -164,3 +164,12 @@ def test_exports_unknown_parameters_and_bad_windows(db):
     assert r.status_code == 404
     week = c.get("/api/v1/analysis/trend?product=FP&period=week", headers=h).json()
     assert sum(row["panels"] for row in week["rows"]) == 6
+    # A window read off the time index: layer 1 of both lots (days 2 and 3 after T0, both
+    # sides) and nothing else; 2 lots x 3 panels x 2 sides = 12 runs.
+    start, end = (T0 + timedelta(days=2)).isoformat(), (T0 + timedelta(days=4)).isoformat()
+    fp = c.get("/api/v1/analysis/fingerprints", params={
+        "product": "FP", "from": start, "to": end, "by_layer": "false"}, headers=h).json()
+    assert sum(row["count"] for row in fp["rows"]) == 12
+    lots = c.get("/api/v1/analysis/lots", params={"product": "FP", "from": start, "to": end},
+                 headers=h).json()
+    assert [x["panels"] for x in lots["lots"]] == [3, 3]
