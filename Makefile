@@ -28,3 +28,4 @@ bench: $(BIN)/.installed
 	$(BIN)/python benchmarks/holds.py
 	$(BIN)/python benchmarks/pages.py
 	$(BIN)/python benchmarks/metrics.py
+	$(BIN)/python benchmarks/analysis.py

@@ -9,6 +9,7 @@ import typer
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
 from app import cli_holds
+from app.cli_analysis import analysis_cli
 from app.cli_store import DatabaseOption, err, fail, out, store
 from app.db import Database
 from app.errors import DomainError
@@ -22,6 +23,7 @@ cli.add_typer(key_cli, name="key")
 cli.command("holds")(cli_holds.holds_command)
 cli.command("hold")(cli_holds.hold_command)
 cli.command("dispose")(cli_holds.dispose_command)
+cli.add_typer(analysis_cli, name="analysis")
 
 
 @db_cli.command("upgrade")

@@ -53,12 +53,11 @@ def _codes(labels: IntArray) -> tuple[IntArray, int]:
 
 
 def _coefficient(group: IntArray, n_group: int, other: IntArray, n_other: int) -> float:
-    """sum_G sum_h n_{G h}^2 / n_G for the cross-tabulation of two groupings."""
-    cells = np.bincount(group * n_other + other, minlength=n_group * n_other)
-    cells = cells.reshape(n_group, n_other).astype(np.float64)
-    sizes = cells.sum(axis=1)
-    keep = sizes > 0
-    return float(np.sum((cells[keep] ** 2).sum(axis=1) / sizes[keep]))
+    """sum_G sum_h n_{G h}^2 / n_G for the cross-tabulation of two groupings (sparse: only the
+    cells that occur are counted)."""
+    cells, counts = np.unique(group * n_other + other, return_counts=True)
+    sizes = np.bincount(group, minlength=n_group).astype(np.float64)
+    return float(np.sum(counts.astype(np.float64) ** 2 / sizes[cells // n_other]))
 
 
 def _between_ss(y: FloatArray, group: IntArray, n_group: int) -> float:

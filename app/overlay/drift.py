@@ -159,22 +159,25 @@ class ChangeEstimate:
 def _profile(
     t: FloatArray, x: FloatArray, s: FloatArray, candidates: FloatArray, kind: str
 ) -> tuple[FloatArray, list[ChangeEstimate]]:
-    """Weighted squared error of a step or a ramp model at each candidate start."""
+    """Weighted squared error of a step or a ramp model at each candidate start (all candidates
+    at once: one regressor row per candidate)."""
     w = 1.0 / s**2
-    sse = np.full(candidates.size, np.inf)
-    fits: list[ChangeEstimate] = []
-    for n, tau in enumerate(candidates):
-        index = int(np.searchsorted(t, tau))
-        if kind == "step":
-            # A step before the first point cannot be dated: it is the first point.
-            regressor = (t >= tau).astype(np.float64) if tau >= t[0] else np.zeros_like(t)
-        else:
-            regressor = np.maximum(t - tau, 0.0)
-        weight = float(np.sum(w * regressor**2))
-        size = float(np.sum(w * regressor * x)) / weight if weight > 0 else 0.0
-        if weight > 0:
-            sse[n] = float(np.sum(w * (x - size * regressor) ** 2))
-        fits.append(ChangeEstimate("step" if kind == "step" else "ramp", float(tau), size, index))
+    tau = candidates[:, np.newaxis]
+    if kind == "step":
+        # A step before the first point cannot be dated: it is the first point.
+        regressor = ((t >= tau) & (tau >= t[0])).astype(np.float64)
+    else:
+        regressor = np.maximum(t - tau, 0.0)
+    weight = (w * regressor**2).sum(axis=1)
+    cross = (w * regressor * x).sum(axis=1)
+    usable = weight > 0
+    size = np.where(usable, cross / np.where(usable, weight, 1.0), 0.0)
+    # Least squares: sum w (x - size r)^2 = sum w x^2 - size^2 * sum w r^2.
+    sse = np.where(usable, float(np.sum(w * x**2)) - size**2 * weight, np.inf)
+    index = np.searchsorted(t, candidates, side="left")
+    label: Literal["step", "ramp"] = "step" if kind == "step" else "ramp"
+    fits = [ChangeEstimate(label, float(c), float(d), int(i))
+            for c, d, i in zip(candidates, size, index, strict=True)]
     return sse, fits
 
 
@@ -217,9 +220,7 @@ def common_change_start(
     if not series:
         raise OverlayInputError("common_change_start needs at least one series")
     checked = [_series(*item) for item in series]
-    candidates = np.unique(np.concatenate(
-        [np.linspace(earliest, latest, grid)]
-        + [t[(t >= earliest) & (t <= latest)] for t, _, _ in checked]))
+    candidates = np.linspace(earliest, latest, grid)
     best: tuple[float, list[ChangeEstimate]] | None = None
     for kind in _KINDS:
         profiles = [_profile(t, x, s, candidates, kind) for t, x, s in checked]

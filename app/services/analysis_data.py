@@ -15,8 +15,10 @@ from datetime import UTC, datetime
 from typing import Any
 
 import numpy as np
-from sqlalchemy import Select, select
+from sqlalchemy import Float, Select, select
+from sqlalchemy.ext.compiler import compiles
 from sqlalchemy.orm import Session
+from sqlalchemy.sql.functions import FunctionElement
 
 from app.errors import FieldError, InvalidInput, NotFound
 from app.overlay.frames import mirror_terms
@@ -24,9 +26,29 @@ from app.schemas.analysis import AnalysisFilter
 from app.services.products import check_points
 from app.store.tables import Fit, Lot, Measurement, Panel, Product
 
+
+class epoch_seconds(FunctionElement[float]):
+    """A stored timestamp as seconds since 1970-01-01 UTC, computed by the database (reading
+    hundreds of thousands of timestamps as Python datetimes costs more than the analysis)."""
+
+    type = Float()
+    inherit_cache = True
+
+
+@compiles(epoch_seconds, "sqlite")
+def _epoch_sqlite(element: epoch_seconds, compiler: Any, **kw: Any) -> str:
+    # Stored as naive UTC text (tables.UtcDateTime); 2440587.5 is the Julian day of the epoch.
+    return f"((julianday({compiler.process(element.clauses, **kw)}) - 2440587.5) * 86400.0)"
+
+
+@compiles(epoch_seconds, "postgresql")
+def _epoch_postgresql(element: epoch_seconds, compiler: Any, **kw: Any) -> str:
+    return f"EXTRACT(EPOCH FROM {compiler.process(element.clauses, **kw)})"
+
+
 _TERMS = (Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox, Fit.oy, Fit.kx, Fit.ky)
 _COLUMNS = (Measurement.panel, Lot.code, Measurement.side, Measurement.layer, Measurement.tool,
-            Measurement.measured_at, *_TERMS)
+            epoch_seconds(Measurement.measured_at), *_TERMS)
 _BATCH = 500
 
 
@@ -105,13 +127,18 @@ def check_window(f: AnalysisFilter) -> None:
                                [FieldError("time zone missing", column=name)])
 
 
-def _runs_query(product_id: int) -> Select[Any]:
+def _runs_query(product_id: int, *, window: bool = False) -> Select[Any]:
+    """Runs in force of one product. With ``window`` the product is matched as an expression
+    (product_id + 0), which no index serves, so that the planner reads the window off the time
+    index: without table statistics SQLite would otherwise walk every panel of the product, the
+    whole store, to find one week."""
+    product = (Panel.product_id + 0) if window else Panel.product_id
     query = (
         select(*_COLUMNS)
         .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))
         .join(Panel, Panel.serial == Measurement.panel)
         .join(Lot, Lot.id == Panel.lot_id)
-        .where(Panel.product_id == product_id, Measurement.superseded_by.is_(None))
+        .where(product == product_id, Measurement.superseded_by.is_(None))
     )
     return query  # type: ignore[return-value]
 
@@ -133,23 +160,24 @@ def _filtered(query: Select[Any], f: AnalysisFilter) -> Select[Any]:
 
 
 def _to_runs(rows: Sequence[Any]) -> Runs:
-    def codes(values: list[str]) -> tuple[np.ndarray, tuple[str, ...]]:
-        labels, inverse = np.unique(np.array(values, dtype=object), return_inverse=True)
+    def codes(values: Sequence[Any]) -> tuple[np.ndarray, tuple[str, ...]]:
+        labels, inverse = np.unique(np.asarray(values, dtype=str), return_inverse=True)
         return inverse.astype(np.int64), tuple(str(v) for v in labels)
 
     if not rows:
         empty = np.zeros(0, dtype=np.int64)
         return Runs(empty, empty, empty, empty.astype(bool), empty, empty.astype(float),
                     np.zeros((0, 8)), (), (), ())
-    panel, panels = codes([r[0] for r in rows])
-    lot, lots = codes([r[1] for r in rows])
-    tool, tools = codes([r[4] for r in rows])
+    columns = list(zip(*rows, strict=True))  # one transpose instead of a pass per field
+    panel, panels = codes(columns[0])
+    lot, lots = codes(columns[1])
+    tool, tools = codes(columns[4])
     return Runs(
         panel=panel, lot=lot, tool=tool,
-        side_b=np.array([r[2] == "B" for r in rows]),
-        layer=np.array([r[3] for r in rows], dtype=np.int64),
-        seconds=np.array([r[5].timestamp() for r in rows], dtype=np.float64),
-        terms=np.array([r[6:14] for r in rows], dtype=np.float64),
+        side_b=np.asarray(columns[2], dtype=object) == "B",
+        layer=np.asarray(columns[3], dtype=np.int64),
+        seconds=np.asarray(columns[5], dtype=np.float64),
+        terms=np.array(columns[6:14], dtype=np.float64).T.copy(),
         panels=panels, lots=lots, tools=tools,
     )
 
@@ -158,8 +186,18 @@ def window_runs(session: Session, f: AnalysisFilter) -> tuple[ProductInfo, Runs]
     """The runs of the filter's product measured in its window, narrowed by its other fields."""
     check_window(f)
     info = product_info(session, f.product)
-    rows = session.execute(_filtered(_runs_query(info.id), f)).all()
+    # Through the connection: plain rows, without the ORM's per-row bookkeeping.
+    window = f.start is not None or f.end is not None
+    query = _filtered(_runs_query(info.id, window=window), f)
+    rows = session.connection().execute(query).all()
     return info, _to_runs(rows)
+
+
+def whole_panels(f: AnalysisFilter) -> bool:
+    """The filter keeps every run of the panels it selects (no window, tool, side or layer), so
+    their stacks are the runs already read."""
+    return f.start is None and f.end is None and f.tool is None and f.side is None \
+        and f.layer is None
 
 
 def stacks(session: Session, info: ProductInfo, serials: Sequence[str]) -> Runs:
@@ -167,7 +205,7 @@ def stacks(session: Session, info: ProductInfo, serials: Sequence[str]) -> Runs:
     rows: list[Any] = []
     serials = sorted(serials)
     for start in range(0, len(serials), _BATCH):
-        rows += session.execute(
+        rows += session.connection().execute(
             _runs_query(info.id).where(Measurement.panel.in_(serials[start:start + _BATCH]))
         ).all()
     return _to_runs(rows)

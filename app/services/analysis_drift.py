@@ -14,6 +14,7 @@ subgroup of median size. The change start is shared by the alarms of one tool an
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -71,7 +72,11 @@ def _subgroups(runs: Runs, values: np.ndarray) -> _Subgroups:
 class _Series:
     """One chart and what its alarm needs once the tool's common change start is known."""
 
-    chart: DriftChart
+    tool: str
+    side: str
+    term: str
+    centre: float
+    make_chart: Callable[[], DriftChart]  # built only for charts that are shown
     days: np.ndarray
     means: np.ndarray
     sigmas: np.ndarray
@@ -111,21 +116,25 @@ def _chart(runs: Runs, sg: _Subgroups, rows: np.ndarray, term: int, settings: Dr
     rules = run_rules(z)
     scale = float(subgroup_sigma(base, np.array([int(np.median(sg.count[order]))]))[0])
     tool, side = runs.tools[sg.tool[order[0]]], "B" if sg.side_b[order[0]] else "A"
-    points = [
-        DriftPoint(lot=runs.lots[sg.lot[i]], layer=int(sg.layer[i]), panels=int(sg.count[i]),
-                   at=as_utc(float(sg.seconds[i])), mean_tool_frame=float(sg.mean[i, term]),
-                   ewma=base.target + float(chart.ewma[n]) * scale,
-                   lower=base.target + float(chart.lower[n]) * scale,
-                   upper=base.target + float(chart.upper[n]) * scale, rules=rules[n])
-        for n, i in enumerate(order)
-    ]
-    result = DriftChart(tool=tool, side=side, term=TERM_NAMES[term],
-                        centre=base.target, sigma_between=base.between,
-                        sigma_within=base.within, points=points)
+    def make_chart() -> DriftChart:
+        points = [
+            DriftPoint(lot=runs.lots[sg.lot[i]], layer=int(sg.layer[i]),
+                       panels=int(sg.count[i]), at=as_utc(float(sg.seconds[i])),
+                       mean_tool_frame=float(sg.mean[i, term]),
+                       ewma=base.target + float(chart.ewma[n]) * scale,
+                       lower=base.target + float(chart.lower[n]) * scale,
+                       upper=base.target + float(chart.upper[n]) * scale, rules=rules[n])
+            for n, i in enumerate(order)
+        ]
+        return DriftChart(tool=tool, side=side, term=TERM_NAMES[term],  # type: ignore[arg-type]
+                          centre=base.target, sigma_between=base.between,
+                          sigma_within=base.within, points=points)
+
     half = settings.k * np.sqrt(settings.lam / (2.0 - settings.lam))
-    return _Series(result, sg.seconds[order] / DAY, sg.mean[order, term], sigmas,
-                   chart.first_signal, float(np.max(np.abs(chart.ewma)) / half),
-                   float(chart.ewma[-1]) * scale, rules)
+    return _Series(tool, side, TERM_NAMES[term], base.target, make_chart,
+                   sg.seconds[order] / DAY, sg.mean[order, term], sigmas, chart.first_signal,
+                   float(np.max(np.abs(chart.ewma)) / half), float(chart.ewma[-1]) * scale,
+                   rules)
 
 
 def _alarms(group: list[_Series], settings: DriftSettings) -> list[DriftAlarm]:
@@ -135,14 +144,15 @@ def _alarms(group: list[_Series], settings: DriftSettings) -> list[DriftAlarm]:
     last_signal = max(float(s.days[s.signal]) for s in group if s.signal is not None)
     span = max(last_signal - first, settings.baseline_days)
     changes = common_change_start(
-        [(s.days, s.means, s.sigmas, s.chart.centre) for s in group],
+        [(s.days, s.means, s.sigmas, s.centre) for s in group],
         earliest=first - span, latest=last_signal)
     out = []
     for s, change in zip(group, changes, strict=True):
         assert s.signal is not None
         fired = sorted({r for n in range(change.index, s.days.size) for r in s.rules[n]})
         out.append(DriftAlarm(
-            tool=s.chart.tool, side=s.chart.side, term=s.chart.term, size_tool_frame=s.last,
+            tool=s.tool, side=s.side, term=s.term,  # type: ignore[arg-type]
+            size_tool_frame=s.last,
             strength=s.strength, first_signal=as_utc(float(s.days[s.signal]) * DAY),
             change_start=as_utc(change.start * DAY), change_kind=change.kind,
             change_rate=change.size, rules=fired,
@@ -179,7 +189,7 @@ def tool_drift(*, db: Database, filters: AnalysisFilter, settings: DriftSettings
                 if series.signal is not None:
                     families.setdefault((t, term // 2), []).append(series)
                 if series.signal is not None or all_charts:
-                    charts.append(series.chart)
+                    charts.append(series.make_chart())
     alarms = [a for group in families.values() for a in _alarms(group, settings)]
     alarms.sort(key=lambda a: a.strength, reverse=True)
     return DriftReport(product=info.code, settings=settings, baseline_end=as_utc(end),

@@ -27,7 +27,14 @@ from app.schemas.analysis import (
     ShareReport,
     VarianceComponent,
 )
-from app.services.analysis_data import Runs, both_sides, selected_panels, stacks, window_runs
+from app.services.analysis_data import (
+    Runs,
+    both_sides,
+    selected_panels,
+    stacks,
+    whole_panels,
+    window_runs,
+)
 
 SOURCES = ("exposure tool", "lot", "panel within lot", "layer scatter")
 
@@ -73,7 +80,8 @@ def ftb_shares(*, db: Database, filters: AnalysisFilter) -> ShareReport:
     """Contributions to the mean FTB at the worst check point, and its variance components."""
     with db.reading() as session:
         info, window = window_runs(session, filters)
-        stack = stacks(session, info, selected_panels(window)) if window.size else window
+        stack = (stacks(session, info, selected_panels(window))
+                 if window.size and not whole_panels(filters) else window)
     runs = stack.subset(both_sides(stack)) if stack.size else stack
     n_panels = len(runs.panels)
     if n_panels < 2:

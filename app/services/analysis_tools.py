@@ -35,6 +35,7 @@ from app.services.analysis_data import (
     both_sides,
     selected_panels,
     stacks,
+    whole_panels,
     window_runs,
 )
 
@@ -121,7 +122,8 @@ def tool_fingerprints(*, db: Database, filters: AnalysisFilter, by_layer: bool =
     with db.reading() as session:
         info, runs = window_runs(session, filters)
         serials = selected_panels(runs)
-        stack = stacks(session, info, serials) if runs.size else runs
+        stack = stacks(session, info, serials) if runs.size and not whole_panels(filters) \
+            else runs
     if runs.size == 0:
         return FingerprintReport(product=info.code, confidence=confidence, panels=0, rows=[],
                                  what_if=[], worst_point_mm=None)

@@ -323,3 +323,8 @@ class AuditEntry(Base):
     action: Mapped[str] = mapped_column(String(40))
     subject: Mapped[str] = mapped_column(String(100), index=True)
     details: Mapped[dict[str, Any]]
+
+
+# The FTB analysis reads one product's runs in a time window, and one tool's runs over time.
+Index("ix_measurements_time", Measurement.measured_at)
+Index("ix_measurements_tool_time", Measurement.tool, Measurement.measured_at)

@@ -1,4 +1,4 @@
-"""The FTB analysis as flat tables (one dict per row), CSV and Parquet.
+"""The FTB analysis as flat tables (one dict per row), CSV, Parquet and terminal tables.
 
 Every report flattens to named tables; the API, the CLI and the exports all use these, so a
 column means the same everywhere. CSV cells are made safe against formula injection as the hold
@@ -10,17 +10,20 @@ from __future__ import annotations
 import csv
 import io
 from collections.abc import Callable
+from datetime import datetime
 from typing import Any
 
 import pyarrow as pa
 import pyarrow.parquet as pq
 from pydantic import BaseModel
+from rich.table import Table
 
 from app.schemas.analysis import (
     DriftReport,
     FingerprintReport,
     LotReport,
     ShareReport,
+    SiteVectors,
     TrendReport,
 )
 from app.services.hold_list import safe_cell
@@ -78,9 +81,13 @@ def trend_tables(r: TrendReport) -> dict[str, list[Row]]:
     return {"periods": [_distribution_row("period", x.period, x) for x in r.rows]}
 
 
+def vector_tables(r: SiteVectors) -> dict[str, list[Row]]:
+    return {"sites": [s.model_dump() for s in r.sites]}
+
+
 TABLES: dict[type[BaseModel], Callable[[Any], dict[str, list[Row]]]] = {
     FingerprintReport: fingerprint_tables, ShareReport: share_tables, DriftReport: drift_tables,
-    LotReport: lot_tables, TrendReport: trend_tables,
+    LotReport: lot_tables, TrendReport: trend_tables, SiteVectors: vector_tables,
 }
 
 
@@ -113,3 +120,27 @@ def to_parquet(rows: list[Row]) -> bytes:
     sink = io.BytesIO()
     pq.write_table(table, sink)
     return sink.getvalue()
+
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return "-"
+    if isinstance(value, datetime):
+        return value.strftime("%Y-%m-%d %H:%M")
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    return str(_plain(value))
+
+
+def rich_table(title: str, rows: list[Row], *, limit: int | None = None) -> Table:
+    """A terminal table of ``rows`` (numbers right-aligned, four significant digits)."""
+    table = Table(title=title)
+    if not rows:
+        table.add_column("(no rows)")
+        return table
+    for name, value in rows[0].items():
+        numeric = isinstance(value, int | float) and not isinstance(value, bool)
+        table.add_column(name, justify="right" if numeric else "left")
+    for row in rows[:limit]:
+        table.add_row(*(_cell(v) for v in row.values()))
+    return table

@@ -104,6 +104,9 @@ def test_panel_frame_vectors_are_mirrored_and_residuals_add_up(db):
         assert v["residual_dx_um"] == pytest.approx(v["dx_um"] - v["model_dx_um"])
     # Least squares with an intercept: residuals sum to zero (numpy.linalg.lstsq property).
     assert abs(sum(v["residual_dx_um"] for v in s)) < 1e-6
+    r = client(db).get(f"/api/v1/analysis/vectors/{serial}/B/2?product=FP",
+                       headers=k.headers("engineer"))
+    assert r.status_code == 422 and "takes none" in r.json()["detail"]
 
 
 def test_components_match_statsmodels_on_the_stored_data(db):
@@ -161,3 +164,12 @@ def test_exports_unknown_parameters_and_bad_windows(db):
     assert r.status_code == 404
     week = c.get("/api/v1/analysis/trend?product=FP&period=week", headers=h).json()
     assert sum(row["panels"] for row in week["rows"]) == 6
+    # A window read off the time index: layer 1 of both lots (days 2 and 3 after T0, both
+    # sides) and nothing else; 2 lots x 3 panels x 2 sides = 12 runs.
+    start, end = (T0 + timedelta(days=2)).isoformat(), (T0 + timedelta(days=4)).isoformat()
+    fp = c.get("/api/v1/analysis/fingerprints", params={
+        "product": "FP", "from": start, "to": end, "by_layer": "false"}, headers=h).json()
+    assert sum(row["count"] for row in fp["rows"]) == 12
+    lots = c.get("/api/v1/analysis/lots", params={"product": "FP", "from": start, "to": end},
+                 headers=h).json()
+    assert [x["panels"] for x in lots["lots"]] == [3, 3]

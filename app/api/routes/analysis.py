@@ -37,15 +37,15 @@ TABLE_RESPONSES: dict[int | str, dict[str, object]] = {
 Format = Literal["json", "csv", "parquet"]
 
 
-def _known(*names: str) -> Callable[[Request], None]:
-    allowed = set(FILTERS) | set(OUTPUT) | set(names)
+def _known(*names: str, tables: bool = True) -> Callable[[Request], None]:
+    allowed = (set(FILTERS) | set(OUTPUT) if tables else set()) | set(names)
 
     def check(request: Request) -> None:
         unknown = sorted(set(request.query_params) - allowed)
         if unknown:
             raise InvalidInput(
                 f"unknown query parameter(s): {', '.join(unknown)}; this endpoint takes "
-                f"{', '.join(sorted(allowed))}",
+                f"{', '.join(sorted(allowed)) or 'none'}",
                 [FieldError(f"unknown parameter '{u}'", column=u) for u in unknown])
 
     return check
@@ -147,7 +147,7 @@ def trend(db: DbDep, _: Analyse, f: Filters, period: Literal["day", "week"] = "d
 
 
 @router.get("/vectors/{serial}/{side}/{layer}", response_model=SiteVectors,
-            dependencies=[Depends(_known())])
+            dependencies=[Depends(_known(tables=False))])
 def vectors(serial: str, side: Literal["A", "B"], layer: Annotated[int, Path(ge=1, le=64)],
             db: DbDep, _: Analyse) -> SiteVectors:
     """Site vectors of one panel, side and layer, raw and residual, for vector maps."""
