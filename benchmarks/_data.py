@@ -187,20 +187,25 @@ def measurements(names: list[str], *, layers: int = LAYERS, seed: int = 2026,
 def write_csv(path: Path, names: list[str], *, layers: int = LAYERS, seed: int = 2026,
               drift_share: float = 0.05, grid: int = GRID) -> int:
     """Write the import CSV; returns the number of site rows."""
-    ms = list(measurements(names, layers=layers, seed=seed, drift_share=drift_share, grid=grid))
-    n, n_sites = len(ms), grid * grid
-    rep = lambda key: np.repeat(np.array([m[key] for m in ms], dtype=object), n_sites)  # noqa: E731
+    return write_measurements(path, list(measurements(
+        names, layers=layers, seed=seed, drift_share=drift_share, grid=grid)))
+
+
+def write_measurements(path: Path, ms: list[dict[str, Any]]) -> int:
+    """Write measurements (as ``measurements`` yields them) as an import CSV; returns the rows."""
+    counts = [len(m["x"]) for m in ms]
+    rep = lambda key: np.repeat(np.array([m[key] for m in ms], dtype=object), counts)  # noqa: E731
     frame = pd.DataFrame({
-        "panel": rep("panel"), "layer": np.repeat([m["layer"] for m in ms], n_sites),
+        "panel": rep("panel"), "layer": np.repeat([m["layer"] for m in ms], counts),
         "side": rep("side"), "frame": rep("frame"), "tool": rep("tool"),
-        "measured_at": np.repeat([m["measured_at"].isoformat() for m in ms], n_sites),
+        "measured_at": np.repeat([m["measured_at"].isoformat() for m in ms], counts),
         "x_mm": np.concatenate([m["x"] for m in ms]),
         "y_mm": np.concatenate([m["y"] for m in ms]),
         "dx_um": np.concatenate([m["dx"] for m in ms]),
         "dy_um": np.concatenate([m["dy"] for m in ms]),
     })
     frame.to_csv(path, index=False, header=list(HEADER), float_format="%.4f")
-    return n * n_sites
+    return sum(counts)
 
 
 def post_body(m: dict[str, Any]) -> dict[str, Any]:
