@@ -7,11 +7,12 @@ except where a script says otherwise.
 from __future__ import annotations
 
 import contextlib
+import os
 import resource
 import tempfile
 import time
 import uuid
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -242,25 +243,32 @@ class Timer:
     def __init__(self) -> None:
         self.seconds: dict[str, float] = {}
         self.calls: dict[str, int] = {}
+        #: Labels of wrapped calls in progress (a hook can ask whether it runs inside one).
+        self.active: set[str] = set()
         self._undo: list[tuple[Any, str, Any]] = []
 
     def add(self, label: str, seconds: float) -> None:
         self.seconds[label] = self.seconds.get(label, 0.0) + seconds
         self.calls[label] = self.calls.get(label, 0) + 1
 
-    def wrap(self, owner: Any, name: str, label: str | None = None) -> None:
-        """Time ``owner.name``; skipped when the app no longer has it (the code moves on)."""
+    def wrap(self, owner: Any, name: str, label: str | None = None, *,
+             label_of: Callable[..., str] | None = None) -> None:
+        """Time ``owner.name`` under ``label`` (or ``label_of(*args, **kwargs)``, per call);
+        skipped when the app no longer has it (the code moves on)."""
         original = getattr(owner, name, None)
         if original is None:
             return
-        label = label or name
+        fixed = label or name
 
         def timed(*args: Any, **kwargs: Any) -> Any:
+            this = label_of(*args, **kwargs) if label_of else fixed
+            self.active.add(this)
             t = time.perf_counter()
             try:
                 return original(*args, **kwargs)
             finally:
-                self.add(label, time.perf_counter() - t)
+                self.add(this, time.perf_counter() - t)
+                self.active.discard(this)
 
         setattr(owner, name, timed)
         self._undo.append((owner, name, original))
@@ -269,6 +277,14 @@ class Timer:
         for owner, name, original in reversed(self._undo):
             setattr(owner, name, original)
         self._undo.clear()
+
+
+def machine() -> str:
+    """Cores and load, printed with the figures: the machine is shared, and other jobs' load
+    changes what one run measures."""
+    one, five, fifteen = os.getloadavg()
+    return (f"{os.cpu_count()} cores, load average {one:.1f} / {five:.1f} / {fifteen:.1f} "
+            "(1 / 5 / 15 min)")
 
 
 def fmt_rate(rows: int, seconds: float) -> str:

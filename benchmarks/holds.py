@@ -350,7 +350,7 @@ def main() -> None:
     from app.config import get_settings
 
     print(f"stackledger holds benchmark: forecast_samples {get_settings().forecast_samples}, "
-          f"seed {args.seed}, python {sys.version.split()[0]}")
+          f"seed {args.seed}, python {sys.version.split()[0]}; {_data.machine()}")
     summary = []
     with _data.tempdir() as tmp_name:
         tmp = Path(tmp_name)
@@ -362,7 +362,7 @@ def main() -> None:
                 print(f"\n== PostgreSQL skipped: {why}")
             else:
                 summary.append(("PostgreSQL", *run("PostgreSQL", tmp, args)))
-    print("\n== summary")
+    print(f"\n== summary ({_data.machine()})")
     for name, share, ratio in summary:
         verdict = "met" if ratio <= TARGET_RATIO else "NOT met"
         print(f"  {name:<11} forecast {100 * share:.1f} % of a POST; hold list ratio "

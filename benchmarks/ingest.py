@@ -110,41 +110,21 @@ def _instrument(timer: Timer) -> None:
     timer.wrap(intake, "_estimate", "  of which estimates (_estimate)")
     timer.wrap(state, "compute", "    of which state.compute")
     timer.wrap(state, "forecast_final", "      of which forecast_final")
-    original_write = intake.write
-    inside_write = [False]
-
-    def write(*args: Any, **kwargs: Any) -> Any:
-        t = time.perf_counter()
-        inside_write[0] = True
-        try:
-            return original_write(*args, **kwargs)
-        finally:
-            inside_write[0] = False
-            timer.add("write: intake.write (write transaction)", time.perf_counter() - t)
-
-    intake.write = write
+    timer.wrap(intake, "write", "write: intake.write (write transaction)")
     timer.wrap(intake, "_lock", "  of which lock panels (_lock)")
     timer.wrap(sitepack, "pack_many", "  of which sitepack.pack_many")
     timer.wrap(bulk, "supersede", "  of which bulk.supersede")
     timer.wrap(intake, "_store_estimates", "  of which store estimates (_store_estimates)")
     timer.wrap(state, "store", "    of which state.store")
     timer.wrap(holds, "apply_automatic", "    of which holds.apply_automatic")
-    original_insert = bulk.insert
-
-    def insert(session: Any, table: Any, rows: Any, **options: Any) -> None:
-        t = time.perf_counter()
-        try:
-            original_insert(session, table, rows, **options)
-        finally:
-            timer.add(f"  of which bulk.insert {table.name}", time.perf_counter() - t)
-
-    bulk.insert = insert
+    timer.wrap(bulk, "insert", label_of=lambda session, table, *_, **__:
+               f"  of which bulk.insert {table.name}")
     # The commit of the write transaction: from the session's before_commit (the final flush
     # follows it) to after_commit, counted only inside intake.write.
     began: dict[int, float] = {}
 
     def before(session: Any) -> None:
-        if inside_write[0]:
+        if "write: intake.write (write transaction)" in timer.active:
             began[id(session)] = time.perf_counter()
 
     def after(session: Any) -> None:
@@ -342,9 +322,8 @@ def main() -> None:
     n_panels = max(1, math.ceil(args.rows / _data.rows_per_panel(grid)))
     names = _data.serials(n_panels)
     print(f"stackledger ingest benchmark: {n_panels} panels x 24 measurements x {args.sites} "
-          "sites, "
-          f"seed {args.seed}, python {sys.version.split()[0]}, sqlite {sqlite3.sqlite_version}, "
-          f"psycopg {psycopg.__version__}")
+          f"sites, seed {args.seed}, python {sys.version.split()[0]}, sqlite "
+          f"{sqlite3.sqlite_version}, psycopg {psycopg.__version__}; {_data.machine()}")
     pg_why = None if args.skip_postgres else _data.pg_available()
     with _data.tempdir() as tmp_name:
         tmp = Path(tmp_name)
@@ -381,7 +360,7 @@ def main() -> None:
         elif pg_why:
             print(f"\n== PostgreSQL skipped: {pg_why}")
 
-    print(f"\n== summary ({args.sites} sites a measurement)")
+    print(f"\n== summary ({args.sites} sites a measurement; {_data.machine()})")
     for name, ratio, mb in summary:
         print(f"  {name:<11} ratio {ratio:.3f} (target >= {target}: "
               f"{'met' if ratio >= target else 'NOT met'})   peak {mb:.0f} MB "

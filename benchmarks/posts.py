@@ -40,13 +40,10 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import cProfile
 import json
 import os
-import pstats
 import socket
 import sqlite3
-import statistics
 import subprocess
 import sys
 import threading
@@ -62,8 +59,8 @@ import psycopg
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import _data
+from _post_profile import where_time_goes
 
-from app.db import Database
 from app.services import keys
 
 TARGET_RATE = 150.0
@@ -285,85 +282,6 @@ def baseline(backend: str, tmp: Path, rows: list[list[tuple[Any, ...]]], clients
             "p99_ms": 1e3 * float(np.percentile(latencies, 99))}
 
 
-# ----------------------------------------------------------------------------- where it goes
-
-#: Groups of one POST's time inside measurements.accept: (label, module file, function name).
-#: Cumulative times; a group nested in another is subtracted from it below.
-GROUPS = (
-    ("read: panels, fits in force (prepare's queries)", "intake.py", "_facts"),
-    ("read: panels, fits in force (prepare's queries)", "state.py", "current_layers_many"),
-    ("read: panels, fits in force (prepare's queries)", "intake.py", "_in_force"),
-    ("checks (checks.problems)", "checks.py", "problems"),
-    ("fit (mirror + fit_many)", "intake.py", "_to_panel_frame"),
-    ("fit (mirror + fit_many)", "intake.py", "_fit"),
-    ("history (product_history)", "history.py", "product_history"),
-    ("estimate: stack, risk (state.compute less forecast)", "state.py", "compute"),
-    ("forecast (forecast_final)", "forecast.py", "forecast_final"),
-    ("write transaction (intake.write less answer)", "intake.py", "write"),
-    ("answer (panel state read, MeasurementRead)", "measurements.py", "answer"),
-)
-
-
-def where_time_goes(url: str, key: str, work: dict[str, Any], n: int) -> dict[str, Any]:
-    """Sequential POSTs through TestClient (accept wrapped), then accept itself under cProfile."""
-    import warnings
-
-    warnings.filterwarnings("ignore", message=".*httpx.*starlette.testclient.*")
-    from fastapi.testclient import TestClient
-
-    from app.main import create_app
-    from app.schemas.measurements import MeasurementCreate
-    from app.services import measurements
-
-    bodies = [b for step in range(max(len(p) for p in work["posts"]))
-              for p in work["posts"] if step < len(p) for b in [p[step]]]
-    first, second = bodies[:n], bodies[n:2 * n]
-    db = Database(url)
-    timer = _data.Timer()
-    try:
-        client = TestClient(create_app(db))
-        headers = {"Authorization": f"Bearer {key}", "Content-Type": "application/json"}
-        timer.wrap(measurements, "accept")
-        per_post = []
-        for body in first:
-            t = time.perf_counter()
-            r = client.post("/api/v1/measurements", content=body, headers=headers)
-            per_post.append(time.perf_counter() - t)
-            assert r.status_code == 201, r.text
-        timer.restore()
-        principal = keys.authenticate(db=db, authorization=f"Bearer {key}")
-        parse_s = 0.0
-        profiler = cProfile.Profile()
-        for body in second:
-            t = time.perf_counter()
-            data = MeasurementCreate.model_validate_json(body)
-            parse_s += time.perf_counter() - t
-            profiler.enable()
-            measurements.accept(db=db, data=data, principal=principal, body=body)
-            profiler.disable()
-    finally:
-        db.close()
-    stats = pstats.Stats(profiler).stats  # type: ignore[attr-defined]
-    cum: dict[tuple[str, str], float] = {}
-    for (path, _line, name), (_cc, _nc, _tt, ct, _callers) in stats.items():
-        key_ = (Path(path).name, name)
-        cum[key_] = cum.get(key_, 0.0) + ct
-    accept_s = cum.get(("measurements.py", "accept"), 0.0)
-    groups: dict[str, float] = {}
-    for label, file, name in GROUPS:
-        groups[label] = groups.get(label, 0.0) + cum.get((file, name), 0.0)
-    forecast = "forecast (forecast_final)"
-    groups["estimate: stack, risk (state.compute less forecast)"] -= groups[forecast]
-    groups["write transaction (intake.write less answer)"] -= \
-        groups["answer (panel state read, MeasurementRead)"]
-    groups["rest of accept (digest, batch form, plan)"] = accept_s - sum(groups.values())
-    return {"posts": len(per_post), "post_ms": 1e3 * statistics.mean(per_post),
-            "accept_ms": 1e3 * timer.seconds.get("accept", 0.0) / len(per_post),
-            "parse_ms": 1e3 * parse_s / len(second), "profiled": len(second),
-            "profiled_accept_ms": 1e3 * accept_s / len(second),
-            "groups": {k: 1e3 * v / len(second) for k, v in groups.items()}}
-
-
 # ----------------------------------------------------------------------------- main
 
 def run(backend: str, tmp: Path, work: dict[str, Any], args: argparse.Namespace,
@@ -433,8 +351,8 @@ def main() -> None:
           f"{sum(map(len, work['posts'])):,} posts of 49 sites "
           f"over {args.panels} panels (layers in order), history of "
           f"{args.history_panels} completed panels, forecast_samples "
-          f"{get_settings().forecast_samples}, seed {args.seed}, {os.cpu_count()} cores, "
-          f"python {sys.version.split()[0]}")
+          f"{get_settings().forecast_samples}, seed {args.seed}, python "
+          f"{sys.version.split()[0]}; {_data.machine()}")
     summary = []
     with _data.tempdir() as tmp_name:
         tmp = Path(tmp_name)
@@ -446,7 +364,7 @@ def main() -> None:
                 summary += run("PostgreSQL", tmp, work, args, worker_counts)
         if not args.skip_sqlite:
             summary += run("SQLite", tmp, work, args, worker_counts)
-    print("\n== summary")
+    print(f"\n== summary ({_data.machine()})")
     for backend, n, r, ratio in summary:
         met = r["rate"] >= TARGET_RATE and r["p99_ms"] <= TARGET_P99_MS and not r["errors"]
         print(f"  {backend:<11} --workers {n}: {r['rate']:6.1f} measurements/s, p99 "
