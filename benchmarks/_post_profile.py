@@ -11,6 +11,7 @@ profile and timed on its own), grouped by the pipeline's functions.
 from __future__ import annotations
 
 import cProfile
+import io
 import pstats
 import statistics
 import time
@@ -39,7 +40,8 @@ GROUPS = (
 )
 
 
-def where_time_goes(url: str, key: str, work: dict[str, Any], n: int) -> dict[str, Any]:
+def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int = 0
+                    ) -> dict[str, Any]:
     """Sequential POSTs through TestClient (accept wrapped), then accept itself under cProfile."""
     import warnings
 
@@ -78,6 +80,9 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int) -> dict[st
             profiler.disable()
     finally:
         db.close()
+    listing = io.StringIO()
+    pstats.Stats(profiler, stream=listing).sort_stats("cumulative").print_stats(
+        r"/app/", top)
     stats = pstats.Stats(profiler).stats  # type: ignore[attr-defined]
     cum: dict[tuple[str, str], float] = {}
     for (path, _line, name), (_cc, _nc, _tt, ct, _callers) in stats.items():
@@ -96,4 +101,5 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int) -> dict[st
             "accept_ms": 1e3 * timer.seconds.get("accept", 0.0) / len(per_post),
             "parse_ms": 1e3 * parse_s / len(second), "profiled": len(second),
             "profiled_accept_ms": 1e3 * accept_s / len(second),
-            "groups": {k: 1e3 * v / len(second) for k, v in groups.items()}}
+            "groups": {k: 1e3 * v / len(second) for k, v in groups.items()},
+            "listing": listing.getvalue() if top else ""}

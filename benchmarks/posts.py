@@ -311,7 +311,7 @@ def run(backend: str, tmp: Path, work: dict[str, Any], args: argparse.Namespace,
         print(f"  ratio POSTs / baseline, --workers {n}: {ratio:.3f}")
     if args.profile_posts:
         with store(backend, tmp, "posts_profile", work) as (url, key):
-            w = where_time_goes(url, key, work, args.profile_posts)
+            w = where_time_goes(url, key, work, args.profile_posts, args.profile_top)
         print(f"  where one POST goes ({w['posts']} sequential POSTs through TestClient, "
               "no concurrency):")
         print(f"    POST mean {w['post_ms']:.1f} ms = measurements.accept {w['accept_ms']:.1f} ms"
@@ -323,6 +323,12 @@ def run(backend: str, tmp: Path, work: dict[str, Any], args: argparse.Namespace,
               f"{w['profiled_accept_ms']:.1f} ms a call")
         for label, ms in sorted(w["groups"].items(), key=lambda kv: -kv[1]):
             print(f"      {label:<54}{ms:7.2f} ms {100 * ms / w['profiled_accept_ms']:5.1f} %")
+        if w["listing"]:
+            print(f"    cProfile of accept, top {args.profile_top} functions of app/ by "
+                  "cumulative time (all calls):")
+            lines = w["listing"].splitlines()
+            start = next((i for i, ln in enumerate(lines) if "ncalls" in ln), 0)
+            print("\n".join("      " + ln for ln in lines[start:] if ln.strip()))
     return out
 
 
@@ -339,6 +345,8 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=120.0, help="bound on one load run")
     ap.add_argument("--profile-posts", type=int, default=300,
                     help="posts for the where-the-time-goes split (0: skip)")
+    ap.add_argument("--profile-top", type=int, default=0,
+                    help="also list the top N app/ functions of the profile by cumulative time")
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--skip-sqlite", action="store_true")
     ap.add_argument("--skip-postgres", action="store_true")
