@@ -19,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 import _data
+from sqlalchemy import event
 
 from app.db import Database
 from app.services import keys
@@ -57,6 +58,14 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int =
     first, second = bodies[:n], bodies[n:2 * n]
     db = Database(url)
     timer = _data.Timer()
+    statements = [0]
+
+    def count(*_: Any) -> None:
+        statements[0] += 1
+
+    # Statements through SQLAlchemy; the bulk inserts go to the driver's cursor directly (COPY
+    # or executemany, 3 a post) and are not counted.
+    event.listen(db.engine, "before_cursor_execute", count)
     try:
         client = TestClient(create_app(db))
         headers = {"Authorization": f"Bearer {key}", "Content-Type": "application/json"}
@@ -68,6 +77,8 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int =
             per_post.append(time.perf_counter() - t)
             assert r.status_code == 201, r.text
         timer.restore()
+        per_post_statements = statements[0] / len(first)
+        statements[0] = 0
         principal = keys.authenticate(db=db, authorization=f"Bearer {key}")
         parse_s = 0.0
         profiler = cProfile.Profile()
@@ -78,7 +89,9 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int =
             profiler.enable()
             measurements.accept(db=db, data=data, principal=principal, body=body)
             profiler.disable()
+        per_accept_statements = statements[0] / len(second)
     finally:
+        event.remove(db.engine, "before_cursor_execute", count)
         db.close()
     listing = io.StringIO()
     pstats.Stats(profiler, stream=listing).sort_stats("cumulative").print_stats(
@@ -102,4 +115,5 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int =
             "parse_ms": 1e3 * parse_s / len(second), "profiled": len(second),
             "profiled_accept_ms": 1e3 * accept_s / len(second),
             "groups": {k: 1e3 * v / len(second) for k, v in groups.items()},
-            "listing": listing.getvalue() if top else ""}
+            "listing": listing.getvalue() if top else "",
+            "statements_post": per_post_statements, "statements_accept": per_accept_statements}

@@ -319,6 +319,8 @@ def run(backend: str, tmp: Path, work: dict[str, Any], args: argparse.Namespace,
               f"{w['post_ms'] - w['accept_ms']:.1f} ms")
         print(f"    (JSON parse + validation alone, MeasurementCreate.model_validate_json: "
               f"{w['parse_ms']:.2f} ms)")
+        print(f"    SQL statements through SQLAlchemy: {w['statements_post']:.1f} a POST, of "
+              f"which accept {w['statements_accept']:.1f} (plus 3 bulk inserts on the driver)")
         print(f"    accept under cProfile ({w['profiled']} calls; times inflated): "
               f"{w['profiled_accept_ms']:.1f} ms a call")
         for label, ms in sorted(w["groups"].items(), key=lambda kv: -kv[1]):
