@@ -7,11 +7,12 @@ except where a script says otherwise.
 from __future__ import annotations
 
 import contextlib
+import os
 import resource
 import tempfile
 import time
 import uuid
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -34,9 +35,21 @@ HEADER = ("panel", "layer", "side", "frame", "tool", "measured_at",
           "x_mm", "y_mm", "dx_um", "dy_um")
 LAYERS = 12
 SIDES = ("A", "B")
-GRID = 7  # 7 x 7 sites a measurement
+GRID = 7  # 7 x 7 sites a measurement by default; --sites 9 takes a 3 x 3 grid
 SITES = GRID * GRID
 ROWS_PER_PANEL = LAYERS * len(SIDES) * SITES  # 1176
+
+
+def grid_for(sites: int) -> int:
+    """The grid side for ``sites`` sites a measurement (a square number: 9, 49, ...)."""
+    side = round(sites ** 0.5)
+    if side * side != sites or side < 2:
+        raise SystemExit(f"--sites must be a square grid of at least 4 sites, not {sites}")
+    return side
+
+
+def rows_per_panel(grid: int = GRID) -> int:
+    return LAYERS * len(SIDES) * grid * grid
 PRODUCT: dict[str, Any] = {
     "code": "BENCH12", "layers_per_side": LAYERS, "flip_axis": "y",
     "panel_width_mm": 510.0, "panel_height_mm": 515.0, "ftb_limit_um": 60.0,
@@ -142,13 +155,14 @@ def panel_drifts(rng: np.random.Generator, n_panels: int, share: float,
 
 
 def measurements(names: list[str], *, layers: int = LAYERS, seed: int = 2026,
-                 drift_share: float = 0.05) -> Iterator[dict[str, Any]]:
+                 drift_share: float = 0.05, grid: int = GRID) -> Iterator[dict[str, Any]]:
     """Measurements in posting order (panel, then layer, A before B), sites in the tool frame.
 
     Yields dicts with panel, layer, side, frame, tool, measured_at (aware), x, y, dx, dy arrays.
     """
     rng = np.random.default_rng(seed)
-    gx, gy = site_grid()
+    gx, gy = site_grid(grid)
+    n_sites = grid * grid
     drifts = panel_drifts(rng, len(names), drift_share)
     for p, serial in enumerate(names):
         terms = _random_terms(rng, layers * 2)
@@ -159,8 +173,8 @@ def measurements(names: list[str], *, layers: int = LAYERS, seed: int = 2026,
                 # Sites in the panel frame -> displacement -> tool frame (side B mirrored).
                 px, py, _, _ = mirror_sites(gx, gy, gx * 0, gy * 0, side=side, flip_axis="y")
                 dx, dy = evaluate(t, px, py)
-                dx = dx + rng.normal(0.0, 1.5, SITES)
-                dy = dy + rng.normal(0.0, 1.5, SITES)
+                dx = dx + rng.normal(0.0, 1.5, n_sites)
+                dy = dy + rng.normal(0.0, 1.5, n_sites)
                 x, y, dx, dy = mirror_sites(px, py, dx, dy, side=side, flip_axis="y")
                 yield {
                     "panel": serial, "layer": k, "side": side, "frame": "tool",
@@ -172,22 +186,27 @@ def measurements(names: list[str], *, layers: int = LAYERS, seed: int = 2026,
 
 
 def write_csv(path: Path, names: list[str], *, layers: int = LAYERS, seed: int = 2026,
-              drift_share: float = 0.05) -> int:
+              drift_share: float = 0.05, grid: int = GRID) -> int:
     """Write the import CSV; returns the number of site rows."""
-    ms = list(measurements(names, layers=layers, seed=seed, drift_share=drift_share))
-    n = len(ms)
-    rep = lambda key: np.repeat(np.array([m[key] for m in ms], dtype=object), SITES)  # noqa: E731
+    return write_measurements(path, list(measurements(
+        names, layers=layers, seed=seed, drift_share=drift_share, grid=grid)))
+
+
+def write_measurements(path: Path, ms: list[dict[str, Any]]) -> int:
+    """Write measurements (as ``measurements`` yields them) as an import CSV; returns the rows."""
+    counts = [len(m["x"]) for m in ms]
+    rep = lambda key: np.repeat(np.array([m[key] for m in ms], dtype=object), counts)  # noqa: E731
     frame = pd.DataFrame({
-        "panel": rep("panel"), "layer": np.repeat([m["layer"] for m in ms], SITES),
+        "panel": rep("panel"), "layer": np.repeat([m["layer"] for m in ms], counts),
         "side": rep("side"), "frame": rep("frame"), "tool": rep("tool"),
-        "measured_at": np.repeat([m["measured_at"].isoformat() for m in ms], SITES),
+        "measured_at": np.repeat([m["measured_at"].isoformat() for m in ms], counts),
         "x_mm": np.concatenate([m["x"] for m in ms]),
         "y_mm": np.concatenate([m["y"] for m in ms]),
         "dx_um": np.concatenate([m["dx"] for m in ms]),
         "dy_um": np.concatenate([m["dy"] for m in ms]),
     })
     frame.to_csv(path, index=False, header=list(HEADER), float_format="%.4f")
-    return n * SITES
+    return sum(counts)
 
 
 def post_body(m: dict[str, Any]) -> dict[str, Any]:
@@ -224,25 +243,32 @@ class Timer:
     def __init__(self) -> None:
         self.seconds: dict[str, float] = {}
         self.calls: dict[str, int] = {}
+        #: Labels of wrapped calls in progress (a hook can ask whether it runs inside one).
+        self.active: set[str] = set()
         self._undo: list[tuple[Any, str, Any]] = []
 
     def add(self, label: str, seconds: float) -> None:
         self.seconds[label] = self.seconds.get(label, 0.0) + seconds
         self.calls[label] = self.calls.get(label, 0) + 1
 
-    def wrap(self, owner: Any, name: str, label: str | None = None) -> None:
-        """Time ``owner.name``; skipped when the app no longer has it (the code moves on)."""
+    def wrap(self, owner: Any, name: str, label: str | None = None, *,
+             label_of: Callable[..., str] | None = None) -> None:
+        """Time ``owner.name`` under ``label`` (or ``label_of(*args, **kwargs)``, per call);
+        skipped when the app no longer has it (the code moves on)."""
         original = getattr(owner, name, None)
         if original is None:
             return
-        label = label or name
+        fixed = label or name
 
         def timed(*args: Any, **kwargs: Any) -> Any:
+            this = label_of(*args, **kwargs) if label_of else fixed
+            self.active.add(this)
             t = time.perf_counter()
             try:
                 return original(*args, **kwargs)
             finally:
-                self.add(label, time.perf_counter() - t)
+                self.add(this, time.perf_counter() - t)
+                self.active.discard(this)
 
         setattr(owner, name, timed)
         self._undo.append((owner, name, original))
@@ -251,6 +277,14 @@ class Timer:
         for owner, name, original in reversed(self._undo):
             setattr(owner, name, original)
         self._undo.clear()
+
+
+def machine() -> str:
+    """Cores and load, printed with the figures: the machine is shared, and other jobs' load
+    changes what one run measures."""
+    one, five, fifteen = os.getloadavg()
+    return (f"{os.cpu_count()} cores, load average {one:.1f} / {five:.1f} / {fifteen:.1f} "
+            "(1 / 5 / 15 min)")
 
 
 def fmt_rate(rows: int, seconds: float) -> str:
