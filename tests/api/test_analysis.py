@@ -106,7 +106,7 @@ def test_panel_frame_vectors_are_mirrored_and_residuals_add_up(db):
     assert abs(sum(v["residual_dx_um"] for v in s)) < 1e-6
     r = client(db).get(f"/api/v1/analysis/vectors/{serial}/B/2?product=FP",
                        headers=k.headers("engineer"))
-    assert r.status_code == 422 and "takes none" in r.json()["detail"]
+    assert r.status_code == 422 and "this route takes: none" in r.json()["detail"]
 
 
 def test_components_match_statsmodels_on_the_stored_data(db):

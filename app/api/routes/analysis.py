@@ -4,11 +4,10 @@ parameters are refused with a 422 that names them."""
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from datetime import datetime
 from typing import Annotated, Literal
 
-from fastapi import APIRouter, Depends, Path, Request, Response
+from fastapi import APIRouter, Depends, Path, Response
 from fastapi import Query as QueryParam
 from pydantic import BaseModel
 
@@ -35,20 +34,6 @@ OUTPUT = ("format", "table")
 TABLE_RESPONSES: dict[int | str, dict[str, object]] = {
     200: {"content": {"text/csv": {}, "application/vnd.apache.parquet": {}}}}
 Format = Literal["json", "csv", "parquet"]
-
-
-def _known(*names: str, tables: bool = True) -> Callable[[Request], None]:
-    allowed = (set(FILTERS) | set(OUTPUT) if tables else set()) | set(names)
-
-    def check(request: Request) -> None:
-        unknown = sorted(set(request.query_params) - allowed)
-        if unknown:
-            raise InvalidInput(
-                f"unknown query parameter(s): {', '.join(unknown)}; this endpoint takes "
-                f"{', '.join(sorted(allowed)) or 'none'}",
-                [FieldError(f"unknown parameter '{u}'", column=u) for u in unknown])
-
-    return check
 
 
 def _filters(
@@ -86,8 +71,7 @@ def _answer(report: BaseModel, fmt: Format, table: str | None, name: str) -> Bas
                              f'attachment; filename="{name}-{chosen}.parquet"'})
 
 
-@router.get("/fingerprints", response_model=FingerprintReport, responses=TABLE_RESPONSES,
-            dependencies=[Depends(_known("by_layer", "confidence"))])
+@router.get("/fingerprints", response_model=FingerprintReport, responses=TABLE_RESPONSES)
 def fingerprints(
     db: DbDep, _: Analyse, f: Filters, by_layer: bool = True,
     confidence: Annotated[float, QueryParam(ge=0.5, lt=1.0)] = 0.95,
@@ -101,8 +85,7 @@ def fingerprints(
     return _answer(report, format, table, "fingerprints")
 
 
-@router.get("/shares", response_model=ShareReport, responses=TABLE_RESPONSES,
-            dependencies=[Depends(_known())])
+@router.get("/shares", response_model=ShareReport, responses=TABLE_RESPONSES)
 def shares(db: DbDep, _: Analyse, f: Filters, format: Format = "json",
            table: str | None = None) -> BaseModel | Response:
     """Each layer and side's, tool's and lot's share of the mean FTB at the worst check point, and
@@ -110,9 +93,7 @@ def shares(db: DbDep, _: Analyse, f: Filters, format: Format = "json",
     return _answer(analysis_ftb.ftb_shares(db=db, filters=f), format, table, "shares")
 
 
-@router.get("/drift", response_model=DriftReport, responses=TABLE_RESPONSES,
-            dependencies=[Depends(_known("lam", "k", "baseline_days", "baseline_end",
-                                         "all_charts"))])
+@router.get("/drift", response_model=DriftReport, responses=TABLE_RESPONSES)
 def drift(
     db: DbDep, _: Analyse, f: Filters,
     lam: Annotated[float, QueryParam(gt=0.0, le=1.0)] = 0.2,
@@ -129,16 +110,14 @@ def drift(
     return _answer(report, format, table, "drift")
 
 
-@router.get("/lots", response_model=LotReport, responses=TABLE_RESPONSES,
-            dependencies=[Depends(_known())])
+@router.get("/lots", response_model=LotReport, responses=TABLE_RESPONSES)
 def lots(db: DbDep, _: Analyse, f: Filters, format: Format = "json",
          table: str | None = None) -> BaseModel | Response:
     """Per lot: panels by risk level, FTB distribution, forecast share within limit."""
     return _answer(analysis_lots.lot_summary(db=db, filters=f), format, table, "lots")
 
 
-@router.get("/trend", response_model=TrendReport, responses=TABLE_RESPONSES,
-            dependencies=[Depends(_known("period"))])
+@router.get("/trend", response_model=TrendReport, responses=TABLE_RESPONSES)
 def trend(db: DbDep, _: Analyse, f: Filters, period: Literal["day", "week"] = "day",
           format: Format = "json", table: str | None = None) -> BaseModel | Response:
     """The lot figures for the whole product, by day or ISO week of each panel's latest run."""
@@ -146,8 +125,7 @@ def trend(db: DbDep, _: Analyse, f: Filters, period: Literal["day", "week"] = "d
     return _answer(report, format, table, "trend")
 
 
-@router.get("/vectors/{serial}/{side}/{layer}", response_model=SiteVectors,
-            dependencies=[Depends(_known(tables=False))])
+@router.get("/vectors/{serial}/{side}/{layer}", response_model=SiteVectors)
 def vectors(serial: str, side: Literal["A", "B"], layer: Annotated[int, Path(ge=1, le=64)],
             db: DbDep, _: Analyse) -> SiteVectors:
     """Site vectors of one panel, side and layer, raw and residual, for vector maps."""
