@@ -221,6 +221,18 @@ def post_body(m: dict[str, Any]) -> dict[str, Any]:
 
 # ----------------------------------------------------------------------------- measuring
 
+def rss_mb() -> float:
+    """Resident set of this process now, MB (VmRSS; 0 where /proc is missing)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("VmRSS:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return 0.0
+
+
 def peak_rss_mb() -> float:
     """Peak resident set of this process so far, MB.
 
