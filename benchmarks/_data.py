@@ -221,20 +221,31 @@ def post_body(m: dict[str, Any]) -> dict[str, Any]:
 
 # ----------------------------------------------------------------------------- measuring
 
+def _status_mb(field: str) -> float | None:
+    """A memory field of /proc/self/status in MB, None where there is none."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith(f"{field}:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return None
+
+
+def rss_mb() -> float:
+    """Resident set of this process now, MB (VmRSS; 0 where /proc is missing)."""
+    return _status_mb("VmRSS") or 0.0
+
+
 def peak_rss_mb() -> float:
     """Peak resident set of this process so far, MB.
 
     VmHWM from /proc/self/status where there is one: unlike ru_maxrss, which Linux carries over
     fork and exec (a spawned child would report its parent's peak), it starts afresh at exec.
     """
-    try:
-        with open("/proc/self/status", encoding="ascii") as f:
-            for line in f:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) / 1024
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    peak = _status_mb("VmHWM")
+    return peak if peak is not None else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
 class Timer:

@@ -72,7 +72,19 @@ STAGES = (
 
 # ----------------------------------------------------------------------------- end to end
 
-def _instrument(timer: Timer) -> None:
+def _rss_after(owner: Any, name: str, marks: dict[str, float]) -> None:
+    """Note the process's resident set when ``owner.name`` returns (where memory builds up)."""
+    original = getattr(owner, name)
+
+    def noted(*args: Any, **kwargs: Any) -> Any:
+        result = original(*args, **kwargs)
+        marks[name] = _data.rss_mb()
+        return result
+
+    setattr(owner, name, noted)
+
+
+def _instrument(timer: Timer, marks: dict[str, float]) -> None:
     """Light wrappers (a few thousand calls a run at most) that split the import by stage.
 
     Every wrapped name is looked up as a module attribute at call time by the pipeline
@@ -99,6 +111,8 @@ def _instrument(timer: Timer) -> None:
             yield chunk
 
     imports._chunks = chunks
+    for owner, name in ((imports, "read"), (intake, "prepare"), (intake, "write")):
+        _rss_after(owner, name, marks)
     timer.wrap(imports, "read", "read: imports.read (CSV -> batch form)")
     timer.wrap(imports, "_read_chunk", "  of which _read_chunk (keys, numbers)")
     timer.wrap(intake, "prepare", "prepare: intake.prepare (read transaction)")
@@ -141,9 +155,9 @@ def import_child(url: str, path: str, profile: bool, queue: Any) -> None:
     from app.db import Database
     from app.services import imports
 
-    timer = Timer()
+    timer, marks = Timer(), {}
     if not profile:  # the profiled run goes unwrapped, so that the profile shows the app only
-        _instrument(timer)
+        _instrument(timer, marks)
     db = Database(url)
     rss_before = _data.peak_rss_mb()
     profiler = cProfile.Profile() if profile else None
@@ -166,7 +180,7 @@ def import_child(url: str, path: str, profile: bool, queue: Any) -> None:
         "seconds": t1 - t0, "cpu_s": cpu, "rows": result.rows, "measurements": result.measurements,
         "panels": result.panels, "rss_before_mb": rss_before, "rss_peak_mb": _data.peak_rss_mb(),
         "breakdown": [(k, timer.seconds[k], timer.calls[k]) for k in timer.seconds],
-        "profile": out.getvalue(),
+        "profile": out.getvalue(), "rss_after": marks,
     })
 
 
@@ -292,6 +306,9 @@ def report(label: str, base_label: str, e2e: dict[str, Any], all_s: list[float],
               f"{e2e['cpu_s']:.2f} s) {min(base_cpu) / e2e['cpu_s']:.3f}   (less load-bound)")
     print(f"  peak RSS of the import process {e2e['rss_peak_mb']:6.0f} MB "
           f"(target < {TARGET_MB:.0f}; {e2e['rss_before_mb']:.0f} MB before the import started)")
+    if e2e.get("rss_after"):
+        print("  resident set when each step returned: " + ", ".join(
+            f"{name} {mb:.0f} MB" for name, mb in e2e["rss_after"].items()))
     print("  where the end-to-end time goes (light wrappers, same run):")
     found = {name: (seconds, calls) for name, seconds, calls in e2e["breakdown"]}
     order = [n for n in STAGES if n in found] + sorted(set(found) - set(STAGES))
