@@ -9,8 +9,9 @@ special.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from typing import Any
 
 from sqlalchemy import Engine, create_engine, event
@@ -63,11 +64,17 @@ class Database:
         )
         #: Learned product histories, by product id, valid for one products.history_revision.
         self.history: RevisionCache[Any] = RevisionCache()
+        # SQLite has one writer at a time. Writers of this process queue here, in order, before
+        # BEGIN IMMEDIATE, instead of in SQLite's busy handler, whose retries back off and give
+        # a long tail of waits under concurrent posts. (Other processes still meet the busy
+        # timeout.)
+        self._sqlite_writers = (threading.RLock() if self.engine.dialect.name == "sqlite"
+                                else None)
 
     @contextmanager
     def transaction(self) -> Iterator[Session]:
         """A session whose work commits on success and rolls back on any error."""
-        with self.sessions() as session, session.begin():
+        with self._sqlite_writers or nullcontext(), self.sessions() as session, session.begin():
             yield session
 
     @contextmanager
