@@ -219,6 +219,10 @@ def refresh(
                 "B": list(forecast.trend_b.remaining_layers),
             },
             "method": forecast.method,
+            # Final FTB terms (panel frame, raw units) and their sd: what a calibration check
+            # compares with the panel's true final terms.
+            "final_terms": [float(v) for v in forecast.final_mean_terms],
+            "final_terms_sd": [float(v) for v in np.sqrt(np.diag(forecast.final_cov_terms))],
         },
         "p_exceed": forecast.p_exceed,
         "risk": assessment.level,
