@@ -9,7 +9,7 @@ panel frame (TERM_NAMES order, raw units) are the sum of
 - on ``drift_share`` of the panels, a one-sided drift: ``drift_um`` (2-4 um) a layer on one side
   in one direction;
 - on ``growth_share`` of the panels, a growing core scale: side A's scale terms grow by
-  ``growth_ppm`` a layer every layer (layer k adds (k - 1) * g), so the FTB scale accelerates;
+  ``growth_ppm`` a layer every layer (layer k adds k * g), so the FTB scale accelerates;
 - the exposure tool's bias, fixed in the tool's own frame (side B mirrored into the panel frame
   with ``app.overlay.frames.mirror_terms``); tool 0's translation bias drifts with time.
 
@@ -139,7 +139,7 @@ class Line:
             t[i, side, :, 0] += size * np.cos(angle)
             t[i, side, :, 1] += size * np.sin(angle)
         growing = rng.random(n) < c.growth_share
-        k = np.arange(big_l)
+        k = np.arange(1, big_l + 1)
         for i in np.flatnonzero(growing):
             g = rng.uniform(*c.growth_ppm) * PPM
             t[i, 0, :, 2] += g * k

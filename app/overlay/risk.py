@@ -10,11 +10,20 @@ rule                     level       fires when
 ftb_over_limit           over_limit  current worst FTB > FTB limit
 l2l_over_limit           over_limit  any layer's worst L2L > L2L limit (either side)
 resistance_over_limit    over_limit  connection resistance > its limit (when both given)
-p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk
-p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch
+p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk, or the panel
+                                     was at_risk (or over) before and P >= p_at_risk_leave
+p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch, or the panel
+                                     was watched (or worse) before and P >= p_watch_leave
 ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
 clear                    clear       none of the above
 =======================  ==========  =====================================================
+
+Hysteresis: a level is entered at its threshold and left only below a lower leave threshold
+(both product settings), with the previous level read from the panel's stored state. A P that
+wanders about one threshold (Monte Carlo noise, or a forecast that changes little from layer to
+layer) then does not take the panel in and out of the hold list. The forecast's Monte Carlo
+grows near every threshold in ``RiskThresholds.decision_points`` until the side of the threshold
+is decided at the stated confidence.
 
 Directions are in the panel frame (x right, y up, looking at side A): "+x", "-y", or an angle
 counter-clockwise from +x when the drift is more than 10 degrees off an axis. A side's drift is
@@ -78,6 +87,9 @@ class RiskThresholds:
         Current FTB from this share of the limit is watched (0.70, common practice).
     resistance_limit_ohm : float or None
         Limit of the representative connection's resistance, when the product has one.
+    p_watch_leave, p_at_risk_leave : float
+        A watched (at-risk) panel leaves that level only when P falls below these;
+        0 < p_watch_leave <= p_watch and 0 < p_at_risk_leave <= p_at_risk.
     """
 
     ftb_limit_um: float
@@ -86,6 +98,12 @@ class RiskThresholds:
     p_at_risk: float = 0.20
     watch_fraction: float = 0.70
     resistance_limit_ohm: float | None = None
+    p_watch_leave: float = 0.02
+    p_at_risk_leave: float = 0.10
+
+    def decision_points(self) -> tuple[float, ...]:
+        """Every P threshold a level can turn on."""
+        return (self.p_watch_leave, self.p_watch, self.p_at_risk_leave, self.p_at_risk)
 
     def __post_init__(self) -> None:
         _finite_positive("ftb_limit_um", self.ftb_limit_um)
@@ -93,6 +111,15 @@ class RiskThresholds:
         if not (0.0 < self.p_watch <= self.p_at_risk <= 1.0):
             raise OverlayInputError(
                 f"need 0 < p_watch <= p_at_risk <= 1, got {self.p_watch!r}, {self.p_at_risk!r}"
+            )
+        if not (0.0 < self.p_watch_leave <= self.p_watch):
+            raise OverlayInputError(
+                f"need 0 < p_watch_leave <= p_watch, got {self.p_watch_leave!r}, {self.p_watch!r}"
+            )
+        if not (0.0 < self.p_at_risk_leave <= self.p_at_risk):
+            raise OverlayInputError(
+                f"need 0 < p_at_risk_leave <= p_at_risk, got {self.p_at_risk_leave!r}, "
+                f"{self.p_at_risk!r}"
             )
         if not (0.0 < self.watch_fraction <= 1.0):
             raise OverlayInputError(
@@ -227,6 +254,7 @@ def assess(
     forecast: Forecast | None,
     thresholds: RiskThresholds,
     resistance_ohm: float | None = None,
+    previous_level: str | None = None,
 ) -> RiskAssessment:
     """Risk level of a panel, the deciding rule and the reasons for every rule that fires.
 
@@ -243,6 +271,9 @@ def assess(
     thresholds : RiskThresholds
     resistance_ohm : float or None
         Resistance of the product's representative connection, when computed.
+    previous_level : str or None
+        The panel's level before this measurement (None for a new panel): the leave
+        thresholds apply to a level the panel already has.
 
     Returns
     -------
@@ -283,6 +314,7 @@ def assess(
                 f"Connection resistance {resistance_ohm:.4g} ohm exceeds the {r_limit:.4g} ohm "
                 f"limit (with the current FTB of {ftb:.1f} um added to its routed length)."
             ]
+    before = -1 if previous_level is None else severity(previous_level)
     if forecast is not None:
         p = forecast.p_exceed
         if p >= thresholds.p_at_risk:
@@ -291,9 +323,23 @@ def assess(
                 thresholds,
                 f"at or above the {thresholds.p_at_risk:.2f} at-risk threshold",
             )
+        elif before >= severity("at_risk") and p >= thresholds.p_at_risk_leave:
+            fired["p_exceed_at_risk"] = _forecast_reasons(
+                forecast,
+                thresholds,
+                f"still at risk: at or above the {thresholds.p_at_risk_leave:.2f} threshold "
+                f"for leaving (entered at {thresholds.p_at_risk:.2f})",
+            )
         elif p >= thresholds.p_watch:
             fired["p_exceed_watch"] = _forecast_reasons(
                 forecast, thresholds, f"at or above the {thresholds.p_watch:.2f} watch threshold"
+            )
+        elif before >= severity("watch") and p >= thresholds.p_watch_leave:
+            fired["p_exceed_watch"] = _forecast_reasons(
+                forecast,
+                thresholds,
+                f"still watched: at or above the {thresholds.p_watch_leave:.2f} threshold for "
+                f"leaving (entered at {thresholds.p_watch:.2f})",
             )
     if thresholds.watch_fraction * limit <= ftb <= limit:
         fired["ftb_near_limit"] = [

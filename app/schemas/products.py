@@ -45,12 +45,26 @@ class ProductCreate(BaseModel):
     )
     p_watch: float = Field(default=0.05, gt=0, lt=1)
     p_at_risk: float = Field(default=0.20, gt=0, lt=1)
+    p_watch_leave: float = Field(
+        default=0.02, gt=0, lt=1,
+        description="A watched panel leaves watch only when P(exceed) falls below this "
+        "(hysteresis); at most p_watch.",
+    )
+    p_at_risk_leave: float = Field(
+        default=0.10, gt=0, lt=1,
+        description="An at-risk panel leaves at_risk only when P(exceed) falls below this "
+        "(hysteresis); at most p_at_risk.",
+    )
     connection: Connection | None = None
 
     @model_validator(mode="after")
     def _check(self) -> ProductCreate:
         if self.p_watch > self.p_at_risk:
             raise ValueError("p_watch must not exceed p_at_risk")
+        if self.p_watch_leave > self.p_watch:
+            raise ValueError("p_watch_leave must not exceed p_watch")
+        if self.p_at_risk_leave > self.p_at_risk:
+            raise ValueError("p_at_risk_leave must not exceed p_at_risk")
         for i, (x, y) in enumerate(self.check_points_mm or []):
             if abs(x) > self.panel_width_mm / 2 or abs(y) > self.panel_height_mm / 2:
                 raise ValueError(f"check_points_mm[{i}] = ({x}, {y}) lies outside the panel")
@@ -70,5 +84,7 @@ class ProductRead(BaseModel):
     check_points_mm: list[tuple[float, float]]
     p_watch: float
     p_at_risk: float
+    p_watch_leave: float
+    p_at_risk_leave: float
     connection: Connection | None
     created_at: datetime

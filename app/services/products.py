@@ -28,6 +28,8 @@ def to_read(product: Product) -> ProductRead:
         check_points_mm=[(float(x), float(y)) for x, y in product.check_points_mm],
         p_watch=product.p_watch,
         p_at_risk=product.p_at_risk,
+        p_watch_leave=product.p_watch_leave,
+        p_at_risk_leave=product.p_at_risk_leave,
         connection=Connection(**product.connection) if product.connection else None,
         created_at=product.created_at,
     )

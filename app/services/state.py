@@ -15,7 +15,8 @@ from sqlalchemy import Row, select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
-from app.overlay.forecast import Forecast, LayerHistory, forecast_final
+from app.overlay.forecast import Forecast, forecast_final
+from app.overlay.layer_history import ProductHistory
 from app.overlay.resistance import RHO_COPPER_20C, resistance_ohm
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
 from app.overlay.stack import StackResult, accumulate
@@ -49,6 +50,12 @@ class CurrentLayer:
 
 
 Layers = dict[str, dict[int, CurrentLayer]]
+
+#: Monte Carlo of the forecast: start with this many samples and grow, up to
+#: FORECAST_MAX_FACTOR times ``forecast_samples``, until the level is decided at this confidence.
+FORECAST_FIRST_SAMPLES = 500
+FORECAST_MAX_FACTOR = 8
+FORECAST_CONFIDENCE = 0.95
 
 
 def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layers]:
@@ -92,28 +99,28 @@ def _resistance(product: Product, ftb_worst_um: float) -> float | None:
 
 def _forecast(
     product: Product,
+    serial: str,
     layers: dict[str, dict[int, CurrentLayer]],
-    stack: StackResult,
-    histories: tuple[LayerHistory, LayerHistory],
+    history: ProductHistory,
+    thresholds: RiskThresholds,
     seed: int,
 ) -> Forecast:
-    observed = {s: {k: cl.terms for k, cl in layers[s].items()} for s in ("A", "B")}
-    n_obs = len(layers["A"]) + len(layers["B"])
-    # Residual scatter at a point: what the observed layers showed (the stack's summed
-    # variance), plus the same average per-layer variance for every layer still to come.
-    var = np.square(np.asarray(stack.residual_sigma_um, dtype=np.float64))
-    if n_obs:
-        var += (2 * product.layers_per_side - n_obs) * var / n_obs
+    # The forecast is of the quantity that judges the panel: the layer models at the check
+    # points. Per-site fit residuals are not part of the final FTB and are not added.
+    samples = get_settings().forecast_samples
     return forecast_final(
-        observed_a=observed["A"],
-        observed_b=observed["B"],
-        history_a=histories[0],
-        history_b=histories[1],
-        layers_per_side=product.layers_per_side,
+        observed_a={k: cl.terms for k, cl in layers["A"].items()},
+        observed_b={k: cl.terms for k, cl in layers["B"].items()},
+        tools_a={k: cl.row.tool for k, cl in layers["A"].items()},
+        tools_b={k: cl.row.tool for k, cl in layers["B"].items()},
+        history=history,
+        panel_id=serial,
         points_mm=check_points(product),
         ftb_limit_um=product.ftb_limit_um,
-        point_sigma_um=(float(np.sqrt(var[0])), float(np.sqrt(var[1]))),
-        n_samples=get_settings().forecast_samples,
+        decide_at=thresholds.decision_points(),
+        confidence=FORECAST_CONFIDENCE,
+        n_start=min(FORECAST_FIRST_SAMPLES, samples),
+        n_max=FORECAST_MAX_FACTOR * samples,
         seed=seed,
     )
 
@@ -139,12 +146,13 @@ def refresh(
     *,
     panel: Panel,
     product: Product,
-    histories: tuple[LayerHistory, LayerHistory] | None = None,
+    histories: ProductHistory | None = None,
     layers: Layers | None = None,
 ) -> tuple[PanelState, RiskAssessment]:
     """Recompute and store the panel's state; returns it with the risk assessment.
 
-    ``histories`` and ``layers`` may be given by a caller that loaded them for many panels.
+    ``histories`` (the product's history) and ``layers`` may be given by a caller that loaded
+    them for many panels.
     """
     if layers is None:
         layers = current_layers(session, panel.serial)
@@ -168,7 +176,20 @@ def refresh(
     )
     if histories is None:
         histories = product_history(session, product=product)
-    forecast = _forecast(product, layers, stack, histories, _seed(panel.serial))
+    thresholds = RiskThresholds(
+        ftb_limit_um=product.ftb_limit_um,
+        l2l_limit_um=product.l2l_limit_um,
+        p_watch=product.p_watch,
+        p_at_risk=product.p_at_risk,
+        p_watch_leave=min(product.p_watch_leave, product.p_watch),
+        p_at_risk_leave=min(product.p_at_risk_leave, product.p_at_risk),
+        resistance_limit_ohm=(product.connection or {}).get("resistance_limit_ohm"),
+    )
+    forecast = _forecast(product, panel.serial, layers, histories, thresholds,
+                         _seed(panel.serial))
+    # Hysteresis: the level the panel had before this measurement decides which thresholds apply.
+    state = session.get(PanelState, panel.serial)
+    previous = state.risk if state is not None else None
     l2l = {
         "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
         "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
@@ -180,14 +201,9 @@ def refresh(
         l2l_worst_a_um=l2l["A"],
         l2l_worst_b_um=l2l["B"],
         forecast=forecast,
-        thresholds=RiskThresholds(
-            ftb_limit_um=product.ftb_limit_um,
-            l2l_limit_um=product.l2l_limit_um,
-            p_watch=product.p_watch,
-            p_at_risk=product.p_at_risk,
-            resistance_limit_ohm=(product.connection or {}).get("resistance_limit_ohm"),
-        ),
+        thresholds=thresholds,
         resistance_ohm=resistance,
+        previous_level=previous,
     )
     points_out = [
         {
@@ -214,6 +230,10 @@ def refresh(
             "final_worst_um": forecast.final_worst_um,
             "band_um": list(forecast.band_um),
             "p_exceed": forecast.p_exceed,
+            "p_exceed_stderr": forecast.p_stderr,
+            "samples": forecast.exceedance.n_samples,
+            "decided": forecast.exceedance.decided,
+            "tool": forecast.tool,
             "remaining": {
                 "A": list(forecast.trend_a.remaining_layers),
                 "B": list(forecast.trend_b.remaining_layers),
@@ -230,7 +250,6 @@ def refresh(
         "reasons": list(assessment.reasons),
         "updated_at": utcnow(),
     }
-    state = session.get(PanelState, panel.serial)
     if state is None:
         state = PanelState(panel=panel.serial, **values)
         session.add(state)

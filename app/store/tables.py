@@ -30,6 +30,7 @@ from sqlalchemy import (
     Text,
     TypeDecorator,
     Uuid,
+    text,
 )
 from sqlalchemy.engine import Dialect
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
@@ -94,6 +95,9 @@ class Product(Base):
     check_points_mm: Mapped[list[Any]]
     p_watch: Mapped[float]
     p_at_risk: Mapped[float]
+    # Hysteresis: a watched / at-risk panel leaves the level only below these (issue 9).
+    p_watch_leave: Mapped[float] = mapped_column(Float, server_default=text("0.02"))
+    p_at_risk_leave: Mapped[float] = mapped_column(Float, server_default=text("0.1"))
     connection: Mapped[dict[str, Any] | None]
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
