@@ -59,17 +59,21 @@ def run_core(line: Line, *, lots: int, score_from: int = 0, window: int = 200,
             noisy = lot.terms + rng.normal(0.0, 1.0, lot.terms.shape) * fit_sd
             for i, serial in enumerate(lot.serials):
                 observed[serial] = noisy[i]
-        # History: every panel of the window with the layers it has so far (complete ones learn
-        # the covariance), as the store holds them before this step's measurements.
-        recent = [lot for lot in out.lots if lot.start_step < step][-(window // c.lot_size):]
+        # History as the service learns it: the last ``window`` complete panels and as many in
+        # process, with the layers they have before this step's measurements.
+        started = [lot for lot in out.lots if lot.start_step < step]
+        done = [lot for lot in started if step - lot.start_step >= c.layers]
+        busy = [lot for lot in started if step - lot.start_step < c.layers]
+        keep = window // c.lot_size
+        recent = done[-keep:] + busy[-keep:]
         ids, terms, present, tools = [], [], [], []
         for lot in recent:
-            done = min(step - lot.start_step, c.layers)
+            measured = min(step - lot.start_step, c.layers)
             for serial in lot.serials:
                 ids.append(serial)
                 terms.append(observed[serial])
                 have = np.zeros((2, c.layers), dtype=bool)
-                have[:, :done] = True
+                have[:, :measured] = True
                 present.append(have)
                 tools.append(lot.tools.T)
         history = learn_history(

@@ -35,8 +35,11 @@ average leverage p / n of a regression prediction).
 Exposure tools
 --------------
 When every observed layer of the panel (at least two) came from one tool, the remaining layers
-are expected on that tool (a lot kept on its tool) and the tool's learned effect is carried into
-each of them; otherwise each remaining layer adds the variance of tool effects over the tools.
+are on that tool with the probability q that the history shows for panels seen on one tool for
+as many layers (``ProductHistory.tool_kept``): the remaining sum gets q times the tool's learned
+effect on each remaining layer, plus the variance of that two-way mixture, q (1 - q) (sum of the
+effects)^2, and (1 - q) times the variance of tool effects over the tools per remaining layer.
+Otherwise each remaining layer adds the variance of tool effects over the tools.
 
 Probability
 -----------
@@ -248,7 +251,10 @@ def forecast_final(
     # Tool expected in each remaining slot (component basis), and the unknown-tool variance.
     tool_rem = np.array([TO_COMPONENTS @ _tool_panel(history, carried, i // layers)
                          for i in slots_r]).reshape(-1, N_TERMS).T
-    unknown_var = 0.0 if carried else float(len(slots_r))
+    q = float(history.tool_kept[min(len(slots_o), len(history.tool_kept) - 1)]) if carried else 0.0
+    carried_sum = tool_rem @ sign[slots_r] if slots_r else np.zeros(N_TERMS)
+    tool_rem = q * tool_rem
+    unknown_var = (1.0 - q) * float(len(slots_r))
 
     mu, cov = history.mean, history.cov_without(panel_id)
     nu = history.dof
@@ -270,7 +276,7 @@ def forecast_final(
     comp_mean = TO_COMPONENTS @ current + rem_dev @ a_r
     var = np.clip(np.einsum("i,cij,j->c", a_r, s_rr, a_r), 0.0, None)
     var = var * (nu + maha) / (nu + n_o) * (1.0 + n_o / nu)
-    var = var + unknown_var * history.tool_var
+    var = var + unknown_var * history.tool_var + q * (1.0 - q) * carried_sum**2
     comp_scale = np.sqrt(var)
     dof = nu + n_o
 
@@ -289,7 +295,7 @@ def forecast_final(
     else:
         def sampler(rng: np.random.Generator, n: int) -> FloatArray:
             # Student t: normal / sqrt(chi2 / dof), one chi2 per sample for all components
-            # (the scale uncertainty comes from the same panels for all of them).
+            # (their parameter uncertainty comes from the same panels).
             normal = rng.standard_normal((n, N_TERMS))
             chi = rng.chisquare(dof, (n, 1)) / dof
             comps = comp_mean + comp_scale * normal / np.sqrt(chi)

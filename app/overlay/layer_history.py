@@ -103,6 +103,11 @@ class ProductHistory:
         Effective panels behind the covariance (nu0 + n), for the predictive t.
     tool_effects : dict of str to array, shape (2, 8)
         Per tool, its effect on side A and side B in the tool's own frame (term units).
+    tool_kept : array, shape (2L + 1,)
+        Entry m: the share of complete panels whose first m measurements (in layer order,
+        A before B) were all on one tool that kept that tool for every layer, with Laplace's
+        rule of succession ((kept + 1) / (uniform + 2)); the chance that a panel seen on one
+        tool so far stays on it.
     tool_var : array, shape (8,)
         Variance of one layer's tool effect over the tools (component basis): what a layer on an
         unknown tool adds.
@@ -131,6 +136,7 @@ class ProductHistory:
     dof: float
     tool_effects: dict[str, FloatArray]
     tool_var: FloatArray
+    tool_kept: FloatArray
     flip_axis: str
     capability_rows: FloatArray
     capability_sum: FloatArray
@@ -147,7 +153,7 @@ class ProductHistory:
         return "history" if self.n_complete else "prior"
 
     def cov_without(self, panel_id: str | None) -> FloatArray:
-        """Sigma (8, 2L, 2L) with the prior's capability taken without ``panel_id``."""
+        """Sigma (8, 2L, 2L), the prior taken without ``panel_id``."""
         w = self.capability_without(panel_id)
         sigma0 = prior_cov(w, self.persistence_without(panel_id, w), self.layers)
         cov = (PRIOR_PANELS * sigma0 + self.data_scatter) / (PRIOR_PANELS + self.n_complete)
@@ -169,14 +175,7 @@ class ProductHistory:
             i = self.panel_ids.index(panel_id)
             total = total - self.pair_sum[i]
             pairs -= float(self.pair_count[i])
-        tau = PRIOR_OFFSET_LAYERS / self.layers
-        default = w * tau / (1.0 + tau)
-        measured = total / pairs if pairs > 0 else default
-        weight = pairs / (pairs + PERSISTENCE_PRIOR_PAIRS)
-        b = weight * measured + (1.0 - weight) * default
-        lowest = -0.9 * w / max(self.layers - 1, 1)
-        out: FloatArray = np.clip(b, lowest, 0.95 * w)
-        return out
+        return _persistence(total, pairs, w, PRIOR_OFFSET_LAYERS / self.layers, self.layers)
 
     def capability_without(self, panel_id: str | None) -> FloatArray:
         """Per-layer variance w per component (8,), the panel ``panel_id`` left out."""
@@ -189,15 +188,31 @@ class ProductHistory:
             rows = rows - have
             s1 = s1 - np.where(have, v, 0.0)
             s2 = s2 - np.where(have, v * v, 0.0)
-        use = rows >= 2
-        dof = float(np.sum(rows[use] - 1.0))
-        if dof <= 0.0:
-            return self.limit_var.copy()
-        ss = np.sum(s2[:, use] - s1[:, use] ** 2 / rows[use], axis=1)
-        measured = np.clip(ss / dof, 0.0, None)
-        weight = dof / (dof + CAPABILITY_PRIOR_ROWS)
-        out: FloatArray = weight * measured + (1.0 - weight) * self.limit_var
-        return out
+        return _capability(rows, s1, s2, self.limit_var)
+
+
+def _capability(rows: FloatArray, s1: FloatArray, s2: FloatArray,
+                limit_var: FloatArray) -> FloatArray:
+    use = rows >= 2
+    dof = float(np.sum(rows[use] - 1.0))
+    if dof <= 0.0:
+        return limit_var.copy()
+    ss = np.sum(s2[:, use] - s1[:, use] ** 2 / rows[use], axis=1)
+    measured = np.clip(ss / dof, 0.0, None)
+    weight = dof / (dof + CAPABILITY_PRIOR_ROWS)
+    out: FloatArray = weight * measured + (1.0 - weight) * limit_var
+    return out
+
+
+def _persistence(total: FloatArray, pairs: float, w: FloatArray, tau: float,
+                 layers: int) -> FloatArray:
+    default = w * tau / (1.0 + tau)
+    measured = total / pairs if pairs > 0 else default
+    weight = pairs / (pairs + PERSISTENCE_PRIOR_PAIRS)
+    b = weight * measured + (1.0 - weight) * default
+    lowest = -0.9 * w / max(layers - 1, 1)
+    out: FloatArray = np.clip(b, lowest, 0.95 * w)
+    return out
 
 
 def limit_variance(l2l_limit_um: float, half_diagonal_mm: float, *, trapezoid: bool) -> FloatArray:
@@ -298,6 +313,15 @@ def learn_history(
             comp = _components(panel_frame)
             tool_var = np.mean(comp**2, axis=(0, 1))
 
+    # How often a panel seen on one tool so far stays on it (complete panels).
+    order = np.stack([tl[:, 0, :], tl[:, 1, :]], axis=2).reshape(n, d)[complete]  # A1 B1 A2..
+    same = order == order[:, :1]
+    prefix = np.cumprod(same, axis=1).astype(bool)  # first m + 1 on the first one's tool
+    whole = prefix[:, -1]
+    uniform = np.r_[len(order), len(order), prefix[:, 1:].sum(axis=0)].astype(np.float64)
+    kept_n = np.r_[whole.sum(), whole.sum(), (prefix[:, 1:] & whole[:, None]).sum(axis=0)]
+    tool_kept = (kept_n + 1.0) / (uniform + 2.0)
+
     # Per-slot components with the tool effect of the layer's own tool removed.
     own = np.zeros_like(t)
     for j, name in enumerate(tool_names):
@@ -334,7 +358,8 @@ def learn_history(
     return ProductHistory(
         layers=big_l, mean=_frozen(mean), data_scatter=_frozen(data),
         n_complete=n_c, dof=PRIOR_PANELS + n_c, tool_effects=effects,
-        tool_var=_frozen(tool_var), flip_axis=flip_axis, capability_rows=_frozen(rows),
+        tool_var=_frozen(tool_var), tool_kept=_frozen(tool_kept), flip_axis=flip_axis,
+        capability_rows=_frozen(rows),
         capability_sum=_frozen(s1), capability_sumsq=_frozen(s2),
         limit_var=_frozen(np.asarray(limit_var, dtype=np.float64)),
         panel_ids=tuple(panel_ids), panel_values=_frozen(values),

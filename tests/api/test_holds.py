@@ -59,7 +59,7 @@ def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(se
     # Alternating errors cancel: never held; it may stay watched by hysteresis (its P entered
     # watch early on and has not fallen below the leave threshold), never at risk.
     assert alt["risk"] in ("clear", "watch"), alt["reasons"]
-    assert alt["forecast"]["p_exceed"] < 0.05
+    assert alt["forecast"]["p_exceed"] < 0.10
     holds = _open(c, k)
     assert [h["panel"] for h in holds] == ["DRIFT"]  # one hold, not one per measurement
     h = holds[0]

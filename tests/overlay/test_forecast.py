@@ -74,6 +74,16 @@ def test_learned_covariance_is_the_sample_covariance_plus_the_prior():
     assert np.abs(h.cov_without(None)[0] - true).max() < 1.2
 
 
+def test_tool_kept_share_follows_the_history():
+    t, present, tool, names, ids = panels(200, tools=4)
+    tool[:100] = 2  # half the panels kept on one tool for every layer
+    h = learn(t, present, tool, names, ids)
+    # After all 2L = 8 measurements on one tool, the panel is on it for good (Laplace's rule).
+    assert h.tool_kept[8] == pytest.approx((100 + 1) / (100 + 2))
+    # After two: the kept panels plus the random ones whose first two agreed (about 1/4 of 100).
+    assert 0.7 < h.tool_kept[2] < 0.86
+
+
 def test_prior_uses_capability_and_the_limit_before_any_data():
     t, present, tool, names, ids = panels(30, layer_sd=1.0, offset_sd=0.0)
     present[:] = False
