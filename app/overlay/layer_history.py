@@ -247,6 +247,28 @@ def _components(terms: FloatArray) -> FloatArray:
     return out
 
 
+def _shrunk_covariance(centred: FloatArray, target: FloatArray) -> FloatArray:
+    """Sample covariance shrunk toward a structured target, per component (8, p, p).
+
+    S = lambda T + (1 - lambda) S_sample with the estimated optimal intensity
+    lambda = sum_ij Var(s_ij) / sum_ij (s_ij - t_ij)^2, clipped to [0, 1], Var(s_ij) from
+    the products w_kij = x_ki x_kj of the centred data (Schafer and Strimmer, "A shrinkage
+    approach to large-scale covariance matrix estimation", Stat. Appl. Genet. Mol. Biol. 4,
+    2005, eq. 10 and section 2.3; the idea is Ledoit and Wolf's). With 24 layers and a few
+    hundred panels the sample covariance is noisy enough that its regression of the remaining
+    layers on the observed ones over-extrapolates some panels; the target is the prior's
+    structure (capability and persistence of the same panels).
+    """
+    n = centred.shape[0]
+    w = np.einsum("nci,ncj->ncij", centred, centred)
+    sample = w.sum(axis=0) / (n - 1.0)
+    var_s = n / (n - 1.0) ** 3 * np.sum((w - w.mean(axis=0)) ** 2, axis=0)
+    gap = np.sum((sample - target) ** 2, axis=(1, 2))
+    lam = np.clip(np.sum(var_s, axis=(1, 2)) / np.where(gap > 0.0, gap, np.inf), 0.0, 1.0)
+    out: FloatArray = lam[:, None, None] * target + (1.0 - lam[:, None, None]) * sample
+    return out
+
+
 def learn_history(
     terms: FloatArray,
     present: np.ndarray,
@@ -350,11 +372,13 @@ def learn_history(
     else:
         z = values[complete]  # (n, 8, d)
         zbar = z.mean(axis=0)
-        centred = z - zbar
-        scatter = np.einsum("nci,ncj->cij", centred, centred)
+        w_all = _capability(rows, s1, s2, np.asarray(limit_var, dtype=np.float64))
+        b_all = _persistence(pair_sum.sum(axis=0), float(pair_count.sum()), w_all,
+                             PRIOR_OFFSET_LAYERS / big_l, big_l)
+        shrunk = _shrunk_covariance(z - zbar, prior_cov(w_all, b_all, big_l))
         k0 = PRIOR_PANELS
         mean = n_c / (n_c + k0) * zbar
-        data = scatter + (k0 * n_c / (k0 + n_c)) * np.einsum("ci,cj->cij", zbar, zbar)
+        data = n_c * shrunk + (k0 * n_c / (k0 + n_c)) * np.einsum("ci,cj->cij", zbar, zbar)
     return ProductHistory(
         layers=big_l, mean=_frozen(mean), data_scatter=_frozen(data),
         n_complete=n_c, dof=PRIOR_PANELS + n_c, tool_effects=effects,

@@ -47,6 +47,12 @@ class ForecastRead(BaseModel):
                                   "last layer.")
     band_um: tuple[float, float] = Field(description="95 % band of the final worst FTB.")
     p_exceed: float = Field(description="Probability that the final worst FTB exceeds the limit.")
+    p_exceed_stderr: float | None = Field(
+        default=None, description="Monte Carlo standard error of p_exceed (states stored "
+        "before it was reported have none).")
+    samples: int | None = Field(
+        default=None, description="Monte Carlo samples drawn: more near a risk threshold, until "
+        "the level is decided at 95 % confidence.")
     remaining: RemainingRead
     method: str
 

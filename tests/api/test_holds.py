@@ -228,3 +228,26 @@ def test_hold_list_pages_follow_the_order(setup):
     assert paged == whole == ["OVER", "M0", "M1", "M2", "M3", "M4"]
     assert c.get("/api/v1/holds?cursor=nonsense",
                  headers=k.headers("supervisor")).status_code == 422
+
+
+def test_forecast_reports_its_monte_carlo_error_and_the_product_its_leave_thresholds(setup):
+    db, c, k = setup
+    make_panel(db, "DRIFT")
+    state = _drift(c, k, "DRIFT", 3)
+    fc = state["forecast"]
+    assert fc["samples"] >= 500
+    p, se = fc["p_exceed"], fc["p_exceed_stderr"]
+    # Binomial standard error, floored at 1 / n (app.overlay.probability).
+    assert se == pytest.approx(max((p * (1 - p)) ** 0.5 / fc["samples"] ** 0.5,
+                                   1 / fc["samples"]), rel=1e-9)
+    product = c.get("/api/v1/products/TESTPROD", headers=k.headers("engineer")).json()
+    assert product["p_watch_leave"] == 0.02 and product["p_at_risk_leave"] == 0.10
+
+
+def test_leave_threshold_above_its_enter_threshold_is_refused(setup):
+    _, c, k = setup
+    body = {"code": "HYST", "layers_per_side": 4, "flip_axis": "y", "panel_width_mm": 100,
+            "panel_height_mm": 100, "ftb_limit_um": 50, "l2l_limit_um": 12,
+            "p_at_risk": 0.2, "p_at_risk_leave": 0.3}
+    r = c.post("/api/v1/products", json=body, headers=k.headers("admin"))
+    assert r.status_code == 422 and "p_at_risk_leave" in r.text
