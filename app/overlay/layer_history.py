@@ -34,8 +34,9 @@ Learning, from the caller's window of the product's panels
 - Posterior, n complete panels (normal-inverse-Wishart, prior worth ``PRIOR_PANELS`` panels:
   Gelman et al., *Bayesian Data Analysis*, 3rd ed., section 3.6):
   mu = n / (n + k0) zbar, Sigma = (nu0 Sigma0 + S + k0 n / (k0 + n) zbar zbar^T) / (nu0 + n),
-  with S the scatter about zbar. The path from prior to history is smooth in n (credibility),
-  with no switch at a panel count.
+  with S = n S_shrunk, S_shrunk the sample covariance shrunk toward the prior's structure
+  (``_shrunk_covariance``). The path from prior to history is smooth in n (credibility), with
+  no switch at a panel count.
 """
 
 from __future__ import annotations
