@@ -9,14 +9,16 @@ worst point of a panel depends jointly on the same uncertain terms, by seeded Mo
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
+from statistics import NormalDist
 from typing import Final
 
 import numpy as np
 from scipy import integrate, stats
 
 from app.overlay.errors import OverlayInputError
-from app.overlay.model import N_TERMS, FloatArray, evaluate
+from app.overlay.model import N_TERMS, FloatArray, design_matrix
 
 #: Relative tolerance for "cov is s^2 I" (the contract's isotropic test).
 _ISOTROPIC_RTOL: Final = 1e-12
@@ -159,6 +161,11 @@ class WorstPointExceedance:
         2.5 % and 97.5 % quantiles of the worst length.
     seed : int
         Seed of ``numpy.random.default_rng`` used.
+    decided : bool
+        Every threshold asked about lies outside p +/- z stderr at ``confidence`` (True when
+        none was asked about).
+    confidence : float
+        Two-sided confidence of that decision.
     """
 
     p_exceed: float
@@ -167,6 +174,8 @@ class WorstPointExceedance:
     worst_mean_um: float
     worst_band_um: tuple[float, float]
     seed: int
+    decided: bool = True
+    confidence: float = 0.95
 
 
 def worst_point_exceedance(
@@ -223,20 +232,7 @@ def worst_point_exceedance(
     # Eigen factor L = V sqrt(W): L L^T = cov even when cov is singular (zero eigenvalues).
     factor = vectors * np.sqrt(w)
     terms = mean + rng.standard_normal((n_samples, N_TERMS)) @ factor.T
-    n_points = points.shape[0]
-    scatter = sx > 0.0 or sy > 0.0
-    worst = np.empty(n_samples)
-    chunk = max(1, _CHUNK_VALUES // (2 * n_points))
-    # Chunks bound memory only: the draws are taken in one sequence, so results do not depend
-    # on the chunk size.
-    for start in range(0, n_samples, chunk):
-        block = terms[start : start + chunk]
-        dx, dy = evaluate(block, points[:, 0], points[:, 1])
-        if scatter:
-            noise = rng.standard_normal((block.shape[0], n_points, 2))
-            dx = dx + sx * noise[..., 0]
-            dy = dy + sy * noise[..., 1]
-        worst[start : start + chunk] = np.sqrt(dx * dx + dy * dy).max(axis=1)
+    worst = _worst_lengths(terms, points, rng, (sx, sy))
     p = float(np.mean(worst > radius))
     lo, hi = np.quantile(worst, [0.025, 0.975])
     return WorstPointExceedance(
@@ -246,4 +242,93 @@ def worst_point_exceedance(
         worst_mean_um=float(worst.mean()),
         worst_band_um=(float(lo), float(hi)),
         seed=int(seed),
+    )
+
+
+def _worst_lengths(
+    terms: FloatArray,
+    points: FloatArray,
+    rng: np.random.Generator,
+    point_sigma_um: tuple[float, float] = (0.0, 0.0),
+) -> FloatArray:
+    """Longest vector over the points for each sampled term vector (n,)."""
+    sx, sy = point_sigma_um
+    n_points = points.shape[0]
+    worst = np.empty(terms.shape[0])
+    chunk = max(1, _CHUNK_VALUES // (2 * n_points))
+    # Chunks bound memory only: the draws are taken in one sequence, so results do not depend
+    # on the chunk size.
+    # One matrix product per chunk: rows 0..P-1 of the design matrix give dx, P..2P-1 dy.
+    design = design_matrix(points[:, 0], points[:, 1]).T
+    for start in range(0, terms.shape[0], chunk):
+        block = terms[start : start + chunk]
+        values = block @ design
+        dx, dy = values[:, :n_points], values[:, n_points:]
+        if sx > 0.0 or sy > 0.0:
+            noise = rng.standard_normal((block.shape[0], n_points, 2))
+            dx = dx + sx * noise[..., 0]
+            dy = dy + sy * noise[..., 1]
+        worst[start : start + chunk] = np.sqrt(dx * dx + dy * dy).max(axis=1)
+    return worst
+
+
+#: A sampler draws n term vectors (n, 8) with the generator it is given.
+Sampler = Callable[[np.random.Generator, int], FloatArray]
+
+
+def adaptive_worst_point_exceedance(
+    sampler: Sampler,
+    points_mm: FloatArray,
+    r: float,
+    *,
+    decide_at: tuple[float, ...] = (),
+    confidence: float = 0.95,
+    n_start: int = 500,
+    n_max: int = 16000,
+    seed: int = 0,
+) -> WorstPointExceedance:
+    """P(longest vector over the points > r) by seeded Monte Carlo whose size grows near a
+    threshold.
+
+    Starts with ``n_start`` samples and doubles the count until every threshold in
+    ``decide_at`` lies outside p +/- z * stderr (z the two-sided normal quantile of
+    ``confidence``), or ``n_max`` samples are drawn. The standard error is the binomial
+    sqrt(p (1 - p) / n), floored at 1 / n so that p = 0 or 1 from few samples is not taken as
+    exact. Far from every threshold a few hundred samples decide; at a threshold the count
+    rises to ``n_max`` and ``decided`` is False.
+    """
+    points = np.asarray(points_mm, dtype=np.float64)
+    if points.ndim != 2 or points.shape[1] != 2 or points.shape[0] == 0:
+        raise OverlayInputError(f"points_mm must have shape (P, 2), P >= 1, got {points.shape}")
+    radius = _radius(r)
+    if not (0.0 < confidence < 1.0):
+        raise OverlayInputError(f"confidence must be in (0, 1), got {confidence!r}")
+    if n_start < 1 or n_max < n_start:
+        raise OverlayInputError(f"need 1 <= n_start <= n_max, got {n_start}, {n_max}")
+    z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
+    rng = np.random.default_rng(seed)
+    parts: list[FloatArray] = []
+    total = 0
+    want = n_start
+    while True:
+        block = np.asarray(sampler(rng, want - total), dtype=np.float64)
+        parts.append(_worst_lengths(block, points, rng))
+        total = want
+        worst = np.concatenate(parts)
+        p = float(np.mean(worst > radius))
+        stderr = float(np.sqrt(max(p * (1.0 - p), 1.0 / total) / total))
+        decided = all(abs(p - t) > z * stderr for t in decide_at)
+        if decided or total >= n_max:
+            break
+        want = min(2 * total, n_max)
+    lo, hi = np.quantile(worst, [0.025, 0.975])
+    return WorstPointExceedance(
+        p_exceed=p,
+        stderr=stderr,
+        n_samples=total,
+        worst_mean_um=float(worst.mean()),
+        worst_band_um=(float(lo), float(hi)),
+        seed=int(seed),
+        decided=decided,
+        confidence=confidence,
     )

@@ -13,9 +13,11 @@ via_off_pad              over_limit  a layer's fitted L2L offset passes its vias
                                      with via settings)
 l2l_over_limit           over_limit  a layer's worst L2L passes the L2L limit by more than 2
                                      fit standard errors (products without via settings)
-p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk
+p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk, or the panel
+                                     was at_risk (or over) before and P >= p_at_risk_leave
 via_miss_at_risk         at_risk     P(a via misses part of its pad) >= p_at_risk somewhere
-p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch
+p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch, or the panel
+                                     was watched (or worse) before and P >= p_watch_leave
 via_miss_watch           watch       P(a via misses part of its pad) >= p_watch somewhere
 ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
 clear                    clear       none of the above
@@ -29,6 +31,12 @@ confidence that the offset really is over, so a noisy fit alone does not put a p
 With via settings the capture margin m = (D_pad - D_via) / 2 judges L2L instead of the product's
 L2L limit, and the miss probability P(|d| > m) (``capture``) gives the watch and at-risk levels;
 the stacked-via extra resistance is a figure in the stack, never a rule.
+Hysteresis: a level is entered at its threshold and left only below a lower leave threshold
+(both product settings), with the previous level read from the panel's stored state. A P that
+wanders about one threshold (Monte Carlo noise, or a forecast that changes little from layer to
+layer) then does not take the panel in and out of the hold list. The forecast's Monte Carlo
+grows near every threshold in ``RiskThresholds.decision_points`` until the side of the threshold
+is decided at the stated confidence.
 
 Directions are in the panel frame (x right, y up, looking at side A): "+x", "-y", or an angle
 counter-clockwise from +x when the drift is more than 10 degrees off an axis. A side's drift is
@@ -96,6 +104,9 @@ class RiskThresholds:
         P(exceed) from which a panel is watched or at risk; 0 < p_watch <= p_at_risk <= 1.
     watch_fraction : float
         Current FTB from this share of the limit is watched (0.70, common practice).
+    p_watch_leave, p_at_risk_leave : float
+        A watched (at-risk) panel leaves that level only when P falls below these;
+        0 < p_watch_leave <= p_watch and 0 < p_at_risk_leave <= p_at_risk.
     """
 
     ftb_limit_um: float
@@ -103,6 +114,12 @@ class RiskThresholds:
     p_watch: float = 0.05
     p_at_risk: float = 0.20
     watch_fraction: float = 0.70
+    p_watch_leave: float = 0.02
+    p_at_risk_leave: float = 0.10
+
+    def decision_points(self) -> tuple[float, ...]:
+        """Every P threshold a level can turn on."""
+        return (self.p_watch_leave, self.p_watch, self.p_at_risk_leave, self.p_at_risk)
 
     def __post_init__(self) -> None:
         _finite_positive("ftb_limit_um", self.ftb_limit_um)
@@ -110,6 +127,15 @@ class RiskThresholds:
         if not (0.0 < self.p_watch <= self.p_at_risk <= 1.0):
             raise OverlayInputError(
                 f"need 0 < p_watch <= p_at_risk <= 1, got {self.p_watch!r}, {self.p_at_risk!r}"
+            )
+        if not (0.0 < self.p_watch_leave <= self.p_watch):
+            raise OverlayInputError(
+                f"need 0 < p_watch_leave <= p_watch, got {self.p_watch_leave!r}, {self.p_watch!r}"
+            )
+        if not (0.0 < self.p_at_risk_leave <= self.p_at_risk):
+            raise OverlayInputError(
+                f"need 0 < p_at_risk_leave <= p_at_risk, got {self.p_at_risk_leave!r}, "
+                f"{self.p_at_risk!r}"
             )
         if not (0.0 < self.watch_fraction <= 1.0):
             raise OverlayInputError(
@@ -305,6 +331,7 @@ def assess(
     l2l_worst_a_um: Mapping[int, float] | None = None,
     l2l_worst_b_um: Mapping[int, float] | None = None,
     interfaces: Sequence[InterfaceCapture] | None = None,
+    previous_level: str | None = None,
 ) -> RiskAssessment:
     """Risk level of a panel, the deciding rule and the reasons for every rule that fires.
 
@@ -324,6 +351,9 @@ def assess(
         Per side and layer, the L2L offset with the fit's standard error and, for a product
         with via settings, its capture figures (``capture.interface_capture``). With a capture
         margin the via rules judge the layer; without one, the L2L limit does.
+    previous_level : str or None
+        The panel's level before this measurement (None for a new panel): the leave
+        thresholds apply to a level the panel already has.
 
     Returns
     -------
@@ -359,6 +389,7 @@ def assess(
     l2l = _l2l_limit_reasons(rows, thresholds.l2l_limit_um)
     if l2l:
         fired["l2l_over_limit"] = l2l
+    before = -1 if previous_level is None else severity(previous_level)
     if forecast is not None:
         p = forecast.p_exceed
         if p >= thresholds.p_at_risk:
@@ -367,9 +398,23 @@ def assess(
                 thresholds,
                 f"at or above the {thresholds.p_at_risk:.2f} at-risk threshold",
             )
+        elif before >= severity("at_risk") and p >= thresholds.p_at_risk_leave:
+            fired["p_exceed_at_risk"] = _forecast_reasons(
+                forecast,
+                thresholds,
+                f"still at risk: at or above the {thresholds.p_at_risk_leave:.2f} threshold "
+                f"for leaving (entered at {thresholds.p_at_risk:.2f})",
+            )
         elif p >= thresholds.p_watch:
             fired["p_exceed_watch"] = _forecast_reasons(
                 forecast, thresholds, f"at or above the {thresholds.p_watch:.2f} watch threshold"
+            )
+        elif before >= severity("watch") and p >= thresholds.p_watch_leave:
+            fired["p_exceed_watch"] = _forecast_reasons(
+                forecast,
+                thresholds,
+                f"still watched: at or above the {thresholds.p_watch_leave:.2f} threshold for "
+                f"leaving (entered at {thresholds.p_watch:.2f})",
             )
     if thresholds.watch_fraction * limit <= ftb <= limit:
         fired["ftb_near_limit"] = [

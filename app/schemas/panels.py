@@ -50,6 +50,12 @@ class ForecastRead(BaseModel):
     band_um: UmBand = Field(description="95 % band of the final worst FTB.")
     p_exceed: Probability = Field(
         description="Probability that the final worst FTB exceeds the limit.")
+    p_exceed_stderr: Probability | None = Field(
+        default=None, description="Monte Carlo standard error of p_exceed (states stored "
+        "before it was reported have none).")
+    samples: int | None = Field(
+        default=None, description="Monte Carlo samples drawn: more near a risk threshold, until "
+        "the level is decided at 95 % confidence.")
     remaining: RemainingRead
     method: str
 

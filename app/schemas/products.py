@@ -105,6 +105,16 @@ class ProductCreate(BaseModel):
         description="Via and pad diameters; without them each layer's L2L is judged against "
         "l2l_limit_um alone.",
     )
+    p_watch_leave: float = Field(
+        default=0.02, gt=0, lt=1,
+        description="A watched panel leaves watch only when P(exceed) falls below this "
+        "(hysteresis); at most p_watch.",
+    )
+    p_at_risk_leave: float = Field(
+        default=0.10, gt=0, lt=1,
+        description="An at-risk panel leaves at_risk only when P(exceed) falls below this "
+        "(hysteresis); at most p_at_risk.",
+    )
 
     @model_validator(mode="after")
     def _check(self) -> ProductCreate:
@@ -116,6 +126,10 @@ class ProductCreate(BaseModel):
                     f"vias.layers[{i}].layer is {v.layer}, beyond layers_per_side "
                     f"({self.layers_per_side})"
                 )
+        if self.p_watch_leave > self.p_watch:
+            raise ValueError("p_watch_leave must not exceed p_watch")
+        if self.p_at_risk_leave > self.p_at_risk:
+            raise ValueError("p_at_risk_leave must not exceed p_at_risk")
         for i, (x, y) in enumerate(self.check_points_mm or []):
             if abs(x) > self.panel_width_mm / 2 or abs(y) > self.panel_height_mm / 2:
                 raise ValueError(f"check_points_mm[{i}] = ({x}, {y}) lies outside the panel")
@@ -136,6 +150,8 @@ class ProductRead(BaseModel):
     p_watch: float
     p_at_risk: float
     vias: Vias | None
+    p_watch_leave: float
+    p_at_risk_leave: float
     created_at: datetime
 
 

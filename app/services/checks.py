@@ -39,6 +39,7 @@ class PanelFacts:
 
     status: str
     product: Product
+    risk: str | None = None  # the panel's stored level
 
 
 @dataclass(frozen=True)

@@ -189,9 +189,11 @@ def _recompute(db: Database, session: Session, panel: Panel) -> PanelState:
     its revision and cut-off move too (``app.services.history``)."""
     session.flush()
     product = session.get_one(Product, panel.product_id)
+    stored = session.get(PanelState, panel.serial)
     estimate = state.compute(serial=panel.serial, product=product,
                              layers=state.current_layers(session, panel.serial),
-                             histories=product_history(db, session, product=product))
+                             histories=product_history(db, session, product=product),
+                             previous_level=stored.risk if stored else None)
     panel.revision += 1
     session.execute(update(Product).where(Product.id == product.id).values(
         history_revision=Product.history_revision + 1, history_at=utcnow()))

@@ -33,11 +33,12 @@ from app.db import Database
 from app.errors import FieldError, InvalidInput
 from app.overlay.fit import OverlayFit, fit_many, reach_of
 from app.overlay.frames import mirror_sites
+from app.overlay.layer_history import ProductHistory
 from app.schemas.text import control_problem
 from app.services import checks, holds, state
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.checks import PanelFacts
-from app.services.history import Histories, product_history
+from app.services.history import product_history
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.services.products import check_points
 from app.store import bulk, sitepack
@@ -60,7 +61,9 @@ class Plan:
     revisions: dict[str, int]
     completed: dict[str, bool]
     in_force: dict[LayerKey, uuid.UUID]
-    histories: dict[int, Histories]
+    histories: dict[int, ProductHistory]
+    #: Each panel's stored level before the batch (the levels' hysteresis starts from it).
+    levels: dict[str, str | None] = field(default_factory=dict)
     estimates: dict[str, state.Estimate] = field(default_factory=dict)
 
 
@@ -84,12 +87,14 @@ def _facts(session: Session, serials: Iterable[str]
     completed: dict[str, bool] = {}
     for start in range(0, len(wanted), 500):
         rows = session.execute(
-            select(Panel.serial, Panel.status, Panel.revision, Panel.completed_at, Product)
+            select(Panel.serial, Panel.status, Panel.revision, Panel.completed_at, Product,
+                   PanelState.risk)
             .join(Product, Product.id == Panel.product_id)
+            .outerjoin(PanelState, PanelState.panel == Panel.serial)
             .where(Panel.serial.in_(wanted[start:start + 500]))
         ).all()
-        for serial, status, revision, completed_at, product in rows:
-            facts[serial] = PanelFacts(status=status, product=product)
+        for serial, status, revision, completed_at, product, risk in rows:
+            facts[serial] = PanelFacts(status=status, product=product, risk=risk)
             revisions[serial] = revision
             completed[serial] = completed_at is not None
     return facts, revisions, completed
@@ -153,7 +158,7 @@ def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, state.Layers
         product = plan.products[first[serial]]
         plan.estimates[serial] = state.compute(
             serial=serial, product=product, layers=layers[serial],
-            histories=plan.histories[product.id])
+            histories=plan.histories[product.id], previous_level=plan.levels.get(serial))
 
 
 def prepare(
@@ -186,6 +191,7 @@ def prepare(
         panel_sites=sites, fits=_fit(sites, batch.counts, products),
         ids=[uuid.uuid4() for _ in range(len(batch))], revisions=revisions,
         completed=completed, in_force=in_force, histories=histories,
+        levels={s: f.risk for s, f in facts.items() if f is not None},
     )
     _estimate(plan, serials, layers)
     return plan
@@ -232,6 +238,8 @@ def _lock(session: Session, plan: Plan) -> dict[str, Panel]:
         plan.in_force.update(_in_force(layers))
         for s in moved:
             plan.completed[s] = locked[s].completed_at is not None
+        plan.levels.update(session.execute(select(PanelState.panel, PanelState.risk)
+                                           .where(PanelState.panel.in_(moved))).tuples().all())
         _estimate(plan, moved, layers)
     return locked
 

@@ -33,6 +33,8 @@ def to_read(product: Product) -> ProductRead:
         p_watch=product.p_watch,
         p_at_risk=product.p_at_risk,
         vias=_vias(product),
+        p_watch_leave=product.p_watch_leave,
+        p_at_risk_leave=product.p_at_risk_leave,
         created_at=product.created_at,
     )
 

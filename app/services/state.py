@@ -20,7 +20,8 @@ from sqlalchemy.orm import Session
 
 from app.config import get_settings
 from app.overlay.capture import InterfaceCapture, capture_all
-from app.overlay.forecast import Forecast, LayerHistory, forecast_final
+from app.overlay.forecast import Forecast, forecast_final
+from app.overlay.layer_history import ProductHistory
 from app.overlay.model import evaluate
 from app.overlay.resistance import RHO_COPPER_20C, StackedVia, stacked_via
 from app.overlay.risk import RiskAssessment, RiskThresholds, assess
@@ -65,6 +66,12 @@ class CurrentLayer:
 
 
 Layers = dict[str, dict[int, CurrentLayer]]
+
+#: Monte Carlo of the forecast: start with this many samples and grow, up to
+#: FORECAST_MAX_FACTOR times ``forecast_samples``, until the level is decided at this confidence.
+FORECAST_FIRST_SAMPLES = 500
+FORECAST_MAX_FACTOR = 8
+FORECAST_CONFIDENCE = 0.95
 
 
 def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layers]:
@@ -135,28 +142,28 @@ def _capture(
 
 def _forecast(
     product: Product,
+    serial: str,
     layers: dict[str, dict[int, CurrentLayer]],
-    stack: StackResult,
-    histories: tuple[LayerHistory, LayerHistory],
+    history: ProductHistory,
+    thresholds: RiskThresholds,
     seed: int,
 ) -> Forecast:
-    observed = {s: {k: cl.terms for k, cl in layers[s].items()} for s in ("A", "B")}
-    n_obs = len(layers["A"]) + len(layers["B"])
-    # Residual scatter at a point: what the observed layers showed (the stack's summed
-    # variance), plus the same average per-layer variance for every layer still to come.
-    var = np.square(np.asarray(stack.residual_sigma_um, dtype=np.float64))
-    if n_obs:
-        var += (2 * product.layers_per_side - n_obs) * var / n_obs
+    # The forecast is of the quantity that judges the panel: the layer models at the check
+    # points. Per-site fit residuals are not part of the final FTB and are not added.
+    samples = get_settings().forecast_samples
     return forecast_final(
-        observed_a=observed["A"],
-        observed_b=observed["B"],
-        history_a=histories[0],
-        history_b=histories[1],
-        layers_per_side=product.layers_per_side,
+        observed_a={k: cl.terms for k, cl in layers["A"].items()},
+        observed_b={k: cl.terms for k, cl in layers["B"].items()},
+        tools_a={k: cl.tool for k, cl in layers["A"].items()},
+        tools_b={k: cl.tool for k, cl in layers["B"].items()},
+        history=history,
+        panel_id=serial,
         points_mm=check_points(product),
         ftb_limit_um=product.ftb_limit_um,
-        point_sigma_um=(float(np.sqrt(var[0])), float(np.sqrt(var[1]))),
-        n_samples=get_settings().forecast_samples,
+        decide_at=thresholds.decision_points(),
+        confidence=FORECAST_CONFIDENCE,
+        n_start=min(FORECAST_FIRST_SAMPLES, samples),
+        n_max=FORECAST_MAX_FACTOR * samples,
         seed=seed,
     )
 
@@ -193,9 +200,14 @@ def compute(
     serial: str,
     product: Product,
     layers: Layers,
-    histories: tuple[LayerHistory, LayerHistory],
+    histories: ProductHistory,
+    previous_level: str | None = None,
 ) -> Estimate:
-    """The estimate of a panel whose fits in force are ``layers`` (no database access)."""
+    """The estimate of a panel whose fits in force are ``layers`` (no database access).
+
+    ``previous_level`` is the panel's stored level before this change: the hysteresis of the
+    levels (leave thresholds) applies to a level the panel already has.
+    """
     order = {s: sorted(layers[s]) for s in ("A", "B")}
 
     def stacked(side: str) -> tuple[np.ndarray, np.ndarray]:
@@ -214,7 +226,15 @@ def compute(
     stack = accumulate(
         terms_a, terms_b, points, residual_var_a=var_a, residual_var_b=var_b
     )
-    forecast = _forecast(product, layers, stack, histories, _seed(serial))
+    thresholds = RiskThresholds(
+        ftb_limit_um=product.ftb_limit_um,
+        l2l_limit_um=product.l2l_limit_um,
+        p_watch=product.p_watch,
+        p_at_risk=product.p_at_risk,
+        p_watch_leave=min(product.p_watch_leave, product.p_watch),
+        p_at_risk_leave=min(product.p_at_risk_leave, product.p_at_risk),
+    )
+    forecast = _forecast(product, serial, layers, histories, thresholds, _seed(serial))
     l2l = {
         "A": {k: float(stack.l2l_worst_a_um[k - 1]) for k in order["A"]},
         "B": {k: float(stack.l2l_worst_b_um[k - 1]) for k in order["B"]},
@@ -225,12 +245,8 @@ def compute(
         ftb_worst_at_mm=stack.worst_at_mm,
         interfaces=faces,
         forecast=forecast,
-        thresholds=RiskThresholds(
-            ftb_limit_um=product.ftb_limit_um,
-            l2l_limit_um=product.l2l_limit_um,
-            p_watch=product.p_watch,
-            p_at_risk=product.p_at_risk,
-        ),
+        thresholds=thresholds,
+        previous_level=previous_level,
     )
     points_out = [
         StoredPoint(x_mm=float(p[0]), y_mm=float(p[1]), dx_um=float(v[0]), dy_um=float(v[1]),
@@ -252,9 +268,15 @@ def compute(
             final_worst_um=forecast.final_worst_um,
             band_um=(float(forecast.band_um[0]), float(forecast.band_um[1])),
             p_exceed=forecast.p_exceed,
+            p_exceed_stderr=forecast.p_stderr,
+            samples=forecast.exceedance.n_samples,
+            decided=forecast.exceedance.decided,
+            tool=forecast.tool,
             remaining=RemainingLayers(A=list(forecast.trend_a.remaining_layers),
                                       B=list(forecast.trend_b.remaining_layers)),
             method=forecast.method,
+            final_terms=[float(v) for v in forecast.final_mean_terms],
+            final_terms_sd=[float(v) for v in np.sqrt(np.diag(forecast.final_cov_terms))],
         ),
         "p_exceed": forecast.p_exceed,
         "risk": assessment.level,

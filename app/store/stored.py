@@ -77,8 +77,19 @@ class StoredForecast(_Stored):
     final_worst_um: float
     band_um: tuple[float, float]
     p_exceed: float
+    #: Monte Carlo standard error of p_exceed, the samples drawn (more near a threshold), and
+    #: whether the level was decided at the stated confidence.
+    p_exceed_stderr: float | None = None
+    samples: int | None = None
+    decided: bool | None = None
+    #: The exposure tool whose effect was carried into the remaining layers, if any.
+    tool: str | None = None
     remaining: RemainingLayers
     method: str
+    #: Final FTB terms (panel frame, raw units) and their sd: what a calibration check compares
+    #: with a panel's true final terms.
+    final_terms: list[float] = []
+    final_terms_sd: list[float] = []
 
 
 class Typed(TypeDecorator[Any]):

@@ -31,6 +31,7 @@ from sqlalchemy import (
     Text,
     TypeDecorator,
     Uuid,
+    text,
 )
 from sqlalchemy.engine import Dialect
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
@@ -117,6 +118,9 @@ class Product(Base):
     pad_width_um: Mapped[float | None]
     via_depth_um: Mapped[float | None]
     resistivity_ohm_m: Mapped[float | None]
+    # Hysteresis: a watched / at-risk panel leaves the level only below these.
+    p_watch_leave: Mapped[float] = mapped_column(Float, server_default=text("0.02"))
+    p_at_risk_leave: Mapped[float] = mapped_column(Float, server_default=text("0.1"))
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
 
 

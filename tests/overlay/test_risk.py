@@ -26,13 +26,9 @@ def trend(
     return SideTrend(
         observed_layers=observed_layers,
         remaining_layers=remaining,
-        offset_mean=np.zeros(8),
-        offset_cov=np.eye(8),
         weight=0.33,
         per_layer_um=expected,
         observed_per_layer_um=drift,
-        remaining_mean=np.zeros(8),
-        remaining_cov=np.eye(8),
     )
 
 
@@ -63,6 +59,8 @@ def forecast(
         final_worst_um=final,
         band_um=band,
         p_exceed=p,
+        p_stderr=0.01,
+        tool=None,
         method="test",
         complete=not a.remaining_layers and not b.remaining_layers,
     )
@@ -307,3 +305,52 @@ def test_remaining_layers_phrase_agrees_in_number(
     text = " ".join(run(fc=fc).reasons)
     assert phrase in text
     assert "1 layer remain " not in text
+
+
+@pytest.mark.parametrize(
+    ("p", "previous", "level"),
+    [
+        # Entering needs the enter threshold...
+        (0.15, None, "watch"),
+        (0.15, "clear", "watch"),
+        (0.20, "watch", "at_risk"),
+        # ... leaving needs the lower leave threshold (defaults 0.10 and 0.02).
+        (0.15, "at_risk", "at_risk"),
+        (0.10, "at_risk", "at_risk"),
+        (0.099, "at_risk", "watch"),
+        (0.03, "watch", "watch"),
+        (0.03, "clear", "clear"),
+        (0.019, "watch", "clear"),
+        (0.019, "at_risk", "clear"),
+    ],
+)
+def test_hysteresis_enter_and_leave(p, previous, level):
+    out = assess(
+        ftb_worst_um=10.0, ftb_worst_at_mm=None, l2l_worst_a_um={}, l2l_worst_b_um={},
+        forecast=forecast(p), thresholds=LIMITS, previous_level=previous,
+    )
+    assert out.level == level
+    if previous == "at_risk" and level == "at_risk" and p < 0.20:
+        assert any("for leaving" in r for r in out.reasons)
+
+
+def test_hysteresis_stops_flapping_about_a_threshold():
+    # P wandering 0.17..0.23 about the 0.20 at-risk threshold: without hysteresis the panel goes
+    # in and out five times; with it, in once and it stays.
+    ps = [0.17, 0.21, 0.18, 0.22, 0.17, 0.23, 0.18, 0.21, 0.19, 0.22, 0.17]
+    levels, previous = [], None
+    for p in ps:
+        previous = assess(
+            ftb_worst_um=10.0, ftb_worst_at_mm=None, l2l_worst_a_um={}, l2l_worst_b_um={},
+            forecast=forecast(p), thresholds=LIMITS, previous_level=previous,
+        ).level
+        levels.append(previous)
+    assert levels[0] == "watch" and set(levels[1:]) == {"at_risk"}
+
+
+def test_leave_thresholds_are_checked():
+    with pytest.raises(OverlayInputError, match="p_at_risk_leave"):
+        RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_at_risk_leave=0.3)
+    with pytest.raises(OverlayInputError, match="p_watch_leave"):
+        RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_watch_leave=0.0)
+    assert LIMITS.decision_points() == (0.02, 0.05, 0.10, 0.20)
