@@ -2,7 +2,7 @@
 through the real service.
 
     .venv/bin/python benchmarks/calibration.py                   # the default run (~3 min)
-    .venv/bin/python benchmarks/calibration.py --lots 20 --new-lots 8   # a quicker look
+    .venv/bin/python benchmarks/calibration.py --warm-lots 12 --lots 6 --new-lots 4  # quicker
 
 The line (``line_sim.py``) runs staggered lots of two products on the same exposure tools:
 
