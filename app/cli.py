@@ -8,7 +8,7 @@ from typing import Annotated
 import typer
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
-from app import cli_holds
+from app import cli_holds, cli_records
 from app.cli_analysis import analysis_cli
 from app.cli_store import DatabaseOption, err, fail, out, store
 from app.db import Database
@@ -23,6 +23,8 @@ cli.add_typer(key_cli, name="key")
 cli.command("holds")(cli_holds.holds_command)
 cli.command("hold")(cli_holds.hold_command)
 cli.command("dispose")(cli_holds.dispose_command)
+cli.command("audit")(cli_records.audit_command)
+cli.command("rejected")(cli_records.rejected_command)
 cli.add_typer(analysis_cli, name="analysis")
 
 
@@ -143,8 +145,8 @@ def demo(
     their limit, the hold list and a key per role, then serve the API."""
     from app.demo.loader import load_demo
 
-    url = load_demo(database, console=out, load=lambda db: import_file(
-        db, SAMPLE_MEASUREMENTS, label="demo metrology"))
+    url = load_demo(database, console=out, load=lambda db, day: import_file(
+        db, day, label="demo metrology"))
     out.print(f"\nThe demo's database is {database}; the other commands reach it with "
               f"--database {database} (or STACKLEDGER_DATABASE_URL={url}), for example "
               f"`stackledger holds --database {database}`.", soft_wrap=True)
@@ -167,7 +169,6 @@ def demo(
         uvicorn.run("app.main:app", host=host, port=port)
 
 
-SAMPLE_MEASUREMENTS = Path(__file__).resolve().parent / "demo" / "sample_data" / "measurements.csv"
 
 
 def main() -> None:

@@ -1,4 +1,5 @@
-"""Terminal reports (rich): one panel, the panels closest to their limit, the hold list."""
+"""Terminal reports (rich): one panel, the panels closest to their limit, the hold list, the
+audit trail and the refused uploads."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ from rich.table import Table
 
 from app.schemas.holds import CAUTION, HoldList
 from app.schemas.panels import PanelRead
+from app.schemas.records import AuditPage, RejectedUploadPage
 
 RISK_STYLE = {"clear": "green", "watch": "yellow", "at_risk": "bold red",
               "over_limit": "bold white on red"}
@@ -94,3 +96,32 @@ def wide_console(stderr: bool = False) -> Console:
 
     stream = sys.stderr if stderr else sys.stdout
     return Console(stderr=stderr, width=None if stream.isatty() else 200)
+
+
+def print_audit(console: Console, page: AuditPage) -> None:
+    """The audit trail, newest first: who did what to which panel, with the figures."""
+    table = Table(title=f"Audit trail: {len(page.items)} entries (newest first)")
+    for col in ("#", "when (UTC)", "actor", "action", "subject", "details"):
+        table.add_column(col, no_wrap=col != "details")
+    for e in page.items:
+        details = ", ".join(f"{k}={v}" for k, v in e.details.items()
+                            if k in ("hold", "rule", "action", "reason", "note", "rework"))
+        table.add_row(str(e.id), e.at.strftime("%Y-%m-%d %H:%M:%S"), escape(e.actor),
+                      e.action, escape(e.subject), escape(details))
+    console.print(table)
+
+
+def print_rejections(console: Console, page: RejectedUploadPage) -> None:
+    """Refused uploads, newest first, with the reason and where each problem is."""
+    table = Table(title=f"Refused uploads: {len(page.items)} (newest first)")
+    for col in ("#", "received (UTC)", "endpoint", "key", "status", "reason"):
+        table.add_column(col, no_wrap=col != "reason")
+    for r in page.items:
+        where = "; ".join(
+            f"{'line ' + str(e['line']) if e.get('line') else e.get('pointer', '')}"
+            f"{', ' + e['column'] if e.get('column') else ''}: {e.get('message', '')}"
+            for e in r.errors[:3])
+        table.add_row(str(r.id), r.received_at.strftime("%Y-%m-%d %H:%M:%S"),
+                      escape(r.endpoint), escape(r.key_label), str(r.status),
+                      escape(r.reason + (f" ({where})" if where else "")))
+    console.print(table)

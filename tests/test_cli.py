@@ -164,3 +164,21 @@ def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
     r = CliRunner().invoke(cli, ["panel", "P1"])
     # Layer 2 A (+20 um) set aside: the FTB is layer 1's 20 um alone.
     assert "layers A [1]" in r.stdout and "FTB worst 20.0 um" in r.stdout
+
+
+def test_audit_trail_and_refused_uploads_from_the_terminal(env, tmp_path):
+    r = CliRunner().invoke(cli, ["hold", "P1", "--reason", "suspect lamination",
+                                 "--by", "Shift lead B"])
+    assert r.exit_code == 0, r.output
+    bad = tmp_path / "bad.csv"
+    bad.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    assert CliRunner().invoke(cli, ["import", str(bad)]).exit_code == 2
+    trail = CliRunner().invoke(cli, ["audit", "--panel", "P1"])
+    assert trail.exit_code == 0, trail.output
+    assert "cli: Shift lead B" in trail.stdout and "hold" in trail.stdout
+    assert "panel_register" in trail.stdout
+    only = CliRunner().invoke(cli, ["audit", "--actor", "nobody"])
+    assert only.exit_code == 0 and "0 entries" in only.stdout
+    refused = CliRunner().invoke(cli, ["rejected"])
+    assert refused.exit_code == 0, refused.output
+    assert "cli import bad.csv" in refused.stdout and "line 2, side" in refused.stdout
