@@ -225,4 +225,6 @@ def both_sides(runs: Runs) -> np.ndarray:
 
 
 def as_utc(seconds: float) -> datetime:
-    return datetime.fromtimestamp(seconds, tz=UTC)
+    """Seconds since the epoch as a UTC time, to the second (the database's julian-day
+    arithmetic carries microsecond noise)."""
+    return datetime.fromtimestamp(round(seconds), tz=UTC)

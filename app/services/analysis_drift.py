@@ -117,13 +117,15 @@ def _chart(runs: Runs, sg: _Subgroups, rows: np.ndarray, term: int, settings: Dr
     scale = float(subgroup_sigma(base, np.array([int(np.median(sg.count[order]))]))[0])
     tool, side = runs.tools[sg.tool[order[0]]], "B" if sg.side_b[order[0]] else "A"
     def make_chart() -> DriftChart:
+        # Built without validation: every value is made here with its declared type, and a
+        # whole-product chart has thousands of points.
         points = [
-            DriftPoint(lot=runs.lots[sg.lot[i]], layer=int(sg.layer[i]),
-                       panels=int(sg.count[i]), at=as_utc(float(sg.seconds[i])),
-                       mean_tool_frame=float(sg.mean[i, term]),
-                       ewma=base.target + float(chart.ewma[n]) * scale,
-                       lower=base.target + float(chart.lower[n]) * scale,
-                       upper=base.target + float(chart.upper[n]) * scale, rules=rules[n])
+            DriftPoint.model_construct(
+                lot=runs.lots[sg.lot[i]], layer=int(sg.layer[i]), panels=int(sg.count[i]),
+                at=as_utc(float(sg.seconds[i])), mean_tool_frame=float(sg.mean[i, term]),
+                ewma=base.target + float(chart.ewma[n]) * scale,
+                lower=base.target + float(chart.lower[n]) * scale,
+                upper=base.target + float(chart.upper[n]) * scale, rules=rules[n])
             for n, i in enumerate(order)
         ]
         return DriftChart(tool=tool, side=side, term=TERM_NAMES[term],  # type: ignore[arg-type]
