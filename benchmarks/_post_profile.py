@@ -28,13 +28,14 @@ from app.services import keys
 #: Cumulative times; a group nested in another is subtracted from it below.
 GROUPS = (
     ("read: panels, fits in force (prepare's queries)", "intake.py", "_facts"),
-    ("read: panels, fits in force (prepare's queries)", "state.py", "current_layers_many"),
+    ("read: panels, fits in force (prepare's queries)", "panel_estimate.py", "current_layers_many"),
     ("read: panels, fits in force (prepare's queries)", "intake.py", "_in_force"),
     ("checks (checks.problems)", "checks.py", "problems"),
     ("fit (mirror + fit_many)", "intake.py", "_to_panel_frame"),
     ("fit (mirror + fit_many)", "intake.py", "_fit"),
     ("history (product_history)", "history.py", "product_history"),
-    ("estimate: stack, risk (state.compute less forecast)", "state.py", "compute"),
+    ("estimate: stack, risk (panel_estimate.compute less forecast)", "panel_estimate.py",
+     "compute"),
     ("forecast (forecast_final)", "forecast.py", "forecast_final"),
     ("write transaction (intake.write less answer)", "intake.py", "write"),
     ("answer (panel state read, MeasurementRead)", "measurements.py", "answer"),
@@ -106,7 +107,7 @@ def where_time_goes(url: str, key: str, work: dict[str, Any], n: int, top: int =
     for label, file, name in GROUPS:
         groups[label] = groups.get(label, 0.0) + cum.get((file, name), 0.0)
     forecast = "forecast (forecast_final)"
-    groups["estimate: stack, risk (state.compute less forecast)"] -= groups[forecast]
+    groups["estimate: stack, risk (panel_estimate.compute less forecast)"] -= groups[forecast]
     groups["write transaction (intake.write less answer)"] -= \
         groups["answer (panel state read, MeasurementRead)"]
     groups["rest of accept (digest, batch form, plan)"] = accept_s - sum(groups.values())

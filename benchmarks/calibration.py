@@ -23,7 +23,8 @@ Printed, for each product: per layer 3, 6, 9 the sum of predicted p against actu
 Brier score and skill, a reliability table; per panel the false alarm, miss and hit rates (flag
 = at_risk or over_limit at some state by layer 9) and the median layer of first flag; the
 flapping share; the z-score of the final FTB scale term (Sx) of the growing-core-scale panels
-after layer 3; and the forecast's cost: time in ``state._forecast`` against the wall time of the
+after layer 3; and the forecast's cost: time in ``panel_estimate._forecast`` against the wall
+time of the
 import POSTs, measured in this run. Rates come with their binomial standard error.
 """
 
@@ -90,9 +91,9 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
     from app.config import get_settings
     from app.db import Database
     from app.main import create_app
-    from app.services import keys, state
+    from app.services import keys, panel_estimate
     from app.store.migrate import upgrade
-    from app.store.tables import PanelState
+    from app.store.tables import PanelEstimate
 
     tmp = tempfile.TemporaryDirectory(prefix="stackledger_calibration_")
     url = f"sqlite:///{Path(tmp.name) / 'line.db'}"
@@ -119,7 +120,7 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
     last_step = max(s for s, *_ in starts) + config.layers
 
     timer = Timer()
-    timer.wrap(state, "_forecast")
+    timer.wrap(panel_estimate, "_forecast")
     post_s = 0.0
     active: list[tuple[str, Lot]] = []
     for step in range(last_step):
@@ -151,8 +152,8 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
         layer_of = {serial: k for lot, k in work for serial in lot.serials}
         with db.reading() as session:
             rows = session.execute(
-                select(PanelState.panel, PanelState.p_exceed, PanelState.risk,
-                       PanelState.forecast).where(PanelState.panel.in_(list(layer_of)))
+                select(PanelEstimate.panel, PanelEstimate.p_exceed, PanelEstimate.risk,
+                       PanelEstimate.forecast).where(PanelEstimate.panel.in_(list(layer_of)))
             ).all()
         for serial, p, risk, forecast in rows:
             track = products["LINE50" if serial.startswith("L") else "NEW50"]

@@ -21,7 +21,7 @@ points against what its sites can say, and what the miss probability costs.
 4. The capture step's share of a POST /api/v1/measurements: a SQLite store with the benchmark
    product given via settings (``_data.PRODUCT`` plus 35 um vias on 65 um pads), --posts posts
    of layers 1..5 of new panels through fastapi's TestClient with a tool key;
-   ``state.capture_all`` and ``measurements.accept`` are wrapped to sum their time.
+   ``panel_estimate.capture_all`` and ``measurements.accept`` are wrapped to sum their time.
 
 Seeds are fixed; prints figures, asserts nothing.
 """
@@ -141,7 +141,7 @@ def post_share(posts: int) -> None:
     from fastapi.testclient import TestClient
 
     from app.main import create_app
-    from app.services import keys, measurements, state
+    from app.services import keys, measurements, panel_estimate
 
     _data.PRODUCT["vias"] = {"via_diameter_um": 35.0, "pad_diameter_um": 65.0,
                              "copper_thickness_um": 15.0, "via_depth_um": 25.0}
@@ -158,7 +158,7 @@ def post_share(posts: int) -> None:
         for b in bodies[:4]:  # warm-up
             assert client.post("/api/v1/measurements", json=b, headers=headers).status_code == 201
         timer = _data.Timer()
-        timer.wrap(state, "capture_all")
+        timer.wrap(panel_estimate, "capture_all")
         timer.wrap(measurements, "accept")
         try:
             start = time.perf_counter()

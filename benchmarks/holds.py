@@ -11,8 +11,9 @@ for at most 2).
 1. Forecast share: a store with a product history (--history-panels panels, all 24 layers, through
    import_csv), then --posts POSTs through fastapi.testclient.TestClient(create_app(db)) with a
    tool key (layers 1..5 of new panels, layer by layer as a lot goes through the line, after a
-   few warm-up posts that also learn the history). app.services.state.forecast_final,
-   state.compute (the estimate) and measurements.accept are wrapped to sum their time during
+   few warm-up posts that also learn the history). app.services.panel_estimate.forecast_final,
+   panel_estimate.compute (the estimate) and measurements.accept are wrapped to sum their time
+   during
    the posts.
 2. Hold list: a second store with --small panels, ~10 % of them with an open hold (and ~3 % with
    a released one), then grown to --large panels. Panels, lots, panel_states and holds go in
@@ -52,8 +53,8 @@ from _data import Timer
 
 from app.db import Database
 from app.main import create_app
-from app.services import history, keys, measurements, state
-from app.store.tables import Hold, Lot, Panel, PanelState, Product
+from app.services import history, keys, measurements, panel_estimate
+from app.store.tables import Hold, Lot, Panel, PanelEstimate, Product
 
 TARGET_RATIO = 2.0
 
@@ -111,8 +112,8 @@ def forecast_share(db: Database, tmp: Path, args: argparse.Namespace) -> dict[st
     bodies = body_list(post, args.seed + 2)[: args.posts]
 
     timer = Timer()
-    timer.wrap(state, "forecast_final")
-    timer.wrap(state, "compute")
+    timer.wrap(panel_estimate, "forecast_final")
+    timer.wrap(panel_estimate, "compute")
     timer.wrap(measurements, "accept")
     timer.wrap(history, "learn")
     per_post = []
@@ -150,7 +151,8 @@ def _row(obj: Any) -> dict[str, Any]:
 def templates(db: Database) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
     """States and automatic holds that the services produced, as column dicts."""
     with db.transaction() as session:
-        states = [_row(s) for s in session.scalars(select(PanelState).order_by(PanelState.panel))]
+        states = [_row(s) for s in session.scalars(
+            select(PanelEstimate).order_by(PanelEstimate.panel))]
         holds = [_row(h) for h in session.scalars(select(Hold).order_by(Hold.panel))]
     if not holds:  # no panel of the history went on hold: make one like apply_automatic does
         worst = max(states, key=lambda st: st["ftb_worst_um"])
@@ -233,7 +235,7 @@ class HoldStore:
             if lots:
                 conn.execute(insert(Lot), lots)
             conn.execute(insert(Panel), panels)
-            conn.execute(insert(PanelState), states)
+            conn.execute(insert(PanelEstimate), states)
             if holds:
                 conn.execute(insert(Hold), holds)
         self.panels += count
@@ -311,7 +313,7 @@ def run(backend: str, tmp: Path, args: argparse.Namespace) -> tuple[float, float
     print(f"  POST /api/v1/measurements x {f['posts']} (49 sites, layers 1-5):"
           f" mean {f['post_mean_ms']:.1f} ms, median {f['post_median_ms']:.1f} ms")
     print(f"    measurements.accept  {f['accept_ms']:7.2f} ms a post")
-    print(f"    state.compute        {f['compute_ms']:7.2f} ms a post")
+    print(f"    panel_estimate.compute        {f['compute_ms']:7.2f} ms a post")
     print(f"    forecast_final       {f['forecast_ms']:7.2f} ms a post")
     print(f"  forecast share: {100 * f['share_post']:.1f} % of a POST, "
           f"{100 * f['share_accept']:.1f} % of accept "

@@ -49,12 +49,12 @@ STAGES = (
     "  of which _read_chunk (keys, numbers)",
     "prepare: intake.prepare (read transaction)",
     "  of which checks.problems",
-    "  of which state.current_layers_many",
+    "  of which panel_estimate.current_layers_many",
     "  of which history.learn",
     "  of which mirror side B (_to_panel_frame)",
     "  of which fit (_fit -> fit_many)",
     "  of which estimates (_estimate)",
-    "    of which state.compute",
+    "    of which panel_estimate.compute",
     "      of which forecast_final",
     "write: intake.write (write transaction)",
     "  of which lock panels (_lock)",
@@ -64,7 +64,7 @@ STAGES = (
     "  of which bulk.insert fits",
     "  of which bulk.supersede",
     "  of which store estimates (_store_estimates)",
-    "    of which state.store",
+    "    of which panel_estimate.store",
     "    of which holds.apply_automatic",
     "  of which flush + commit",
 )
@@ -93,7 +93,7 @@ def _instrument(timer: Timer, marks: dict[str, float]) -> None:
     from sqlalchemy import event
     from sqlalchemy.orm import Session
 
-    from app.services import checks, history, holds, imports, intake, state
+    from app.services import checks, history, holds, imports, intake, panel_estimate
     from app.store import bulk, sitepack
 
     original_chunks = imports._chunks
@@ -117,19 +117,20 @@ def _instrument(timer: Timer, marks: dict[str, float]) -> None:
     timer.wrap(imports, "_read_chunk", "  of which _read_chunk (keys, numbers)")
     timer.wrap(intake, "prepare", "prepare: intake.prepare (read transaction)")
     timer.wrap(checks, "problems", "  of which checks.problems")
-    timer.wrap(state, "current_layers_many", "  of which state.current_layers_many")
+    timer.wrap(panel_estimate, "current_layers_many",
+               "  of which panel_estimate.current_layers_many")
     timer.wrap(history, "learn", "  of which history.learn")
     timer.wrap(intake, "_to_panel_frame", "  of which mirror side B (_to_panel_frame)")
     timer.wrap(intake, "_fit", "  of which fit (_fit -> fit_many)")
     timer.wrap(intake, "_estimate", "  of which estimates (_estimate)")
-    timer.wrap(state, "compute", "    of which state.compute")
-    timer.wrap(state, "forecast_final", "      of which forecast_final")
+    timer.wrap(panel_estimate, "compute", "    of which panel_estimate.compute")
+    timer.wrap(panel_estimate, "forecast_final", "      of which forecast_final")
     timer.wrap(intake, "write", "write: intake.write (write transaction)")
     timer.wrap(intake, "_lock", "  of which lock panels (_lock)")
     timer.wrap(sitepack, "pack_many", "  of which sitepack.pack_many")
     timer.wrap(bulk, "supersede", "  of which bulk.supersede")
     timer.wrap(intake, "_store_estimates", "  of which store estimates (_store_estimates)")
-    timer.wrap(state, "store", "    of which state.store")
+    timer.wrap(panel_estimate, "store", "    of which panel_estimate.store")
     timer.wrap(holds, "apply_automatic", "    of which holds.apply_automatic")
     timer.wrap(bulk, "insert", label_of=lambda session, table, *_, **__:
                f"  of which bulk.insert {table.name}")

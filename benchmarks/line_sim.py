@@ -19,7 +19,7 @@ lots stay on one tool for every layer; the others draw a tool per layer and side
 
 A measurement is ``grid`` x ``grid`` sites over the central 90 % of the panel, displacement =
 true model + ``site_noise_um`` per axis, reported in the tool frame. The truth that judges a
-panel is its final FTB from the true terms at the product's check points (DOMAIN.md,
+panel is its final FTB from the true terms at the product's check points (docs/conventions.md,
 accumulation) against ``ftb_limit_um``.
 """
 

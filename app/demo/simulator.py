@@ -6,7 +6,7 @@ or one behind). Three exposure tools run the lots. The story the hold list shoul
 
 - EXP-2 carries a translation bias that grows with calendar time in its own tool frame. Both
   sides' tools show it the same way in their own frames, so through the side-B mirror it adds up
-  front to back (DOMAIN.md, "Accumulation") on the panels that run both sides there.
+  front to back (docs/conventions.md, "Accumulation") on the panels that run both sides there.
 - A few panels drift one way, layer after layer: +d in the panel frame on side A and -d on
   side B, so front-to-back grows by 2d a layer pair while each layer passes its L2L check.
 - A few panels have an organic core that keeps growing: each layer shows more scale than the
@@ -398,7 +398,7 @@ def _simulate(rng: np.random.Generator, panels: list[_Panel]) -> list[_Measureme
                 measurements.append(
                     _Measurement(when, panel.serial, layer, side, frame, tool, sites)
                 )
-        # FTB(p) = P_A(p) - P_B(p) (DOMAIN.md, "Accumulation"); the bias is a pure translation.
+        # FTB(p) = P_A(p) - P_B(p) (conventions.md, "Accumulation"); the bias is a pure translation.
         panel.ftb_now_um = _overlay_at_check_points(stack["A"] - stack["B"])
         panel.bias_in_ftb_um = float(np.hypot(*(bias_stack["A"] - bias_stack["B"])[:2]))
     measurements.sort(key=lambda m: (m.measured_at, m.panel, m.layer, m.side))

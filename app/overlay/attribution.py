@@ -1,7 +1,7 @@
 """What drives FTB: per-panel FTB from layer terms, its spread at the check points, what each
 layer, side or tool contributes to the mean FTB vector, and the what-if without a tool's bias.
 
-FTB(p) = sum_k model_A,k(p) - sum_k model_B,k(p), every model in the panel frame (DOMAIN.md,
+FTB(p) = sum_k model_A,k(p) - sum_k model_B,k(p), every model in the panel frame (conventions.md,
 "Accumulation"). The model is linear in its terms, so a panel's FTB is the model of the signed
 sum of its layers' terms (sign +1 on side A, -1 on side B), evaluated at the check points.
 

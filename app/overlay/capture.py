@@ -2,7 +2,7 @@
 
 A via of diameter D_via lands on a pad of diameter D_pad. It is fully on its pad while the
 layer-to-layer (L2L) offset d at its location has |d| <= m, the capture margin
-m = (D_pad - D_via) / 2 (DOMAIN.md, "Vias, capture margin and connection resistance").
+m = (D_pad - D_via) / 2 (docs/conventions.md, "Vias, capture margin and connection resistance").
 
 Per interface (layer k on layer k-1, one side), at each check point p:
 
@@ -18,7 +18,7 @@ Per interface (layer k on layer k-1, one side), at each check point p:
 - when the fitted offset passes the margin, the via bottom's overlap with the pad: the
   intersection of circles of radii D_via/2 and D_pad/2 at centre distance |d|
   (``overlap_area_um2``), and the contact resistance relative to a fully landed via, roughly
-  the via area over the overlap area (first-order model, from memory, as DOMAIN.md says).
+  the via area over the overlap area (first-order model, from memory, as docs/conventions.md says).
 
 For a stacked-via connection through the build-up, each interface shifts the next via sideways
 by that interface's offset, so the current takes an extra lateral path of about
@@ -256,8 +256,8 @@ def resistance_ratio(
 ) -> FloatArray:
     """Contact resistance of a via at offset |d| relative to a fully landed one.
 
-    First-order model (from memory, DOMAIN.md): full via area / overlap area; 1 while the via is
-    on its pad, ``inf`` once it no longer touches the pad (an open).
+    First-order model (from memory; conventions.md): full via area / overlap area; 1 while the via
+    is on its pad, ``inf`` once it no longer touches the pad (an open).
     """
     overlap = overlap_area_um2(distance_um, via_diameter_um, pad_diameter_um)
     full = np.pi * (np.asarray(via_diameter_um, dtype=np.float64) / 2.0) ** 2

@@ -7,9 +7,9 @@ deviations (slots A1..AL, B1..BL), tool effects removed.
 
 What is judged
 --------------
-The final FTB that judges a panel is the sum of its layer models at the check points (DOMAIN.md,
-accumulation): FTB = sum_k t_A,k - sum_k t_B,k. The forecast is of exactly that quantity; the
-per-site residual scatter of the fits is not part of it and is not added.
+The final FTB that judges a panel is the sum of its layer models at the check points
+(conventions.md, accumulation): FTB = sum_k t_A,k - sum_k t_B,k. The forecast is of exactly
+that quantity; the per-site residual scatter of the fits is not part of it and is not added.
 
 Conditioning, per component
 ---------------------------

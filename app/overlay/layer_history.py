@@ -3,9 +3,9 @@
 Components
 ----------
 Terms are handled in the component basis ``COMPONENTS`` = (Tx, Ty, iso scale (Sx + Sy) / 2,
-aniso scale (Sx - Sy) / 2, rotation (Ox + Oy) / 2, non-orthogonality Oy - Ox, Kx, Ky) (DOMAIN.md,
-per-layer model), in which the usual process causes (a rotated or grown panel) load one
-component each. Components are modelled as independent of each other.
+aniso scale (Sx - Sy) / 2, rotation (Ox + Oy) / 2, non-orthogonality Oy - Ox, Kx, Ky)
+(conventions.md, per-layer model), in which the usual process causes (a rotated or grown
+panel) load one component each. Components are modelled as independent of each other.
 
 Per component, the deviations of a panel's 2L layers (slots A1..AL, B1..BL) form one vector z
 with mean mu and covariance Sigma (2L x 2L). An unstructured Sigma learned from complete panels

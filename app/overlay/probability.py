@@ -2,7 +2,7 @@
 
 The length of a 2-D normal vector d ~ N(mean, cov) is Rice distributed when cov = s^2 I
 (Rayleigh when the mean is also 0); for a general covariance its square is a generalized
-chi-square, evaluated here by one-dimensional quadrature along a principal axis (DOMAIN.md,
+chi-square, evaluated here by one-dimensional quadrature along a principal axis (conventions.md,
 "Forecast and risk"). ``worst_point_exceedance`` handles many check points at once, where the
 worst point of a panel depends jointly on the same uncertain terms, by seeded Monte Carlo.
 """

@@ -6,7 +6,7 @@ throughout, except where a name says um.
 
 A stacked-via connection through the build-up: each interface shifts the next via sideways by
 that interface's L2L offset, so the current takes an extra lateral path of about
-sum_k |L2L_k(p)| through the pads, extra R ~ rho sum_k |L2L_k(p)| / (w_pad t_cu) (DOMAIN.md,
+sum_k |L2L_k(p)| through the pads, extra R ~ rho sum_k |L2L_k(p)| / (w_pad t_cu) (conventions.md,
 "Vias, capture margin and connection resistance"). A small figure beside the spread of plated
 copper resistivity and thickness: reported with its size (``stacked_via``), never a reason to
 hold. Whether each via lands on its pad at all is in ``capture``.
@@ -93,7 +93,7 @@ def stacked_extra_resistance_ohm(
     """Extra resistance of a stacked-via chain from its lateral shifts, per point (ohm).
 
     ``l2l_length_um`` (K, P): |L2L_k(p)| of each interface k at each point p. Returns
-    rho * sum_k |L2L_k(p)| / (w_pad t_cu), shape (P,) (DOMAIN.md; R = rho L / A, OpenStax
+    rho * sum_k |L2L_k(p)| / (w_pad t_cu), shape (P,) (docs/conventions.md; R = rho L / A, OpenStax
     University Physics vol. 2, "Resistivity and Resistance").
     """
     lengths = np.asarray(l2l_length_um, dtype=np.float64)

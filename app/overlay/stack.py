@@ -2,7 +2,7 @@
 
 Each layer is registered to the one beneath it, so the outermost layer of side S sits at
 P_S(p) = sum over k of model_S,k(p) relative to the core, and FTB(p) = P_A(p) - P_B(p) + C(p)
-(DOMAIN.md, "Accumulation"). All term vectors come in the panel frame: the caller mirrors side
+(conventions.md, "Accumulation"). All term vectors come in the panel frame: the caller mirrors side
 B's tool-frame terms with ``frames.mirror_terms`` first, which is what makes a bias shown the
 same way by both sides' tools add up and a bias in the same panel direction cancel.
 """

@@ -30,7 +30,7 @@ from app.schemas.analysis import (
 from app.schemas.panels import RiskLevel
 from app.services.analysis_data import check_window, product_info
 from app.store import sitepack
-from app.store.tables import Fit, Lot, Measurement, Panel, PanelState, SiteSet
+from app.store.tables import Fit, Lot, Measurement, Panel, PanelEstimate, SiteSet
 
 
 def _distribution(states: list[Any]) -> dict[str, Any]:
@@ -77,10 +77,10 @@ def _states(db: Database, filters: AnalysisFilter) -> tuple[Any, list[Any]]:
                 last = last.where(column == value)
         sub = last.group_by(Measurement.panel).subquery()
         rows = session.execute(
-            select(PanelState.panel, PanelState.risk, PanelState.ftb_worst_um,
-                   PanelState.p_exceed, Lot.code.label("lot"), sub.c.last_at)
-            .join(sub, sub.c.panel == PanelState.panel)
-            .join(Panel, Panel.serial == PanelState.panel)
+            select(PanelEstimate.panel, PanelEstimate.risk, PanelEstimate.ftb_worst_um,
+                   PanelEstimate.p_exceed, Lot.code.label("lot"), sub.c.last_at)
+            .join(sub, sub.c.panel == PanelEstimate.panel)
+            .join(Panel, Panel.serial == PanelEstimate.panel)
             .join(Lot, Lot.id == Panel.lot_id)
         ).all()
     return info, list(rows)

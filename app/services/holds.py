@@ -30,19 +30,19 @@ from app.db import Database
 from app.errors import Conflict, FieldError, InvalidInput, NotFound
 from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
-from app.services import audit, state
+from app.services import audit, panel_estimate
 from app.services import cursor as cursors
 from app.services.history import product_history
 from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
-from app.store.tables import Hold, Lot, Measurement, Panel, PanelState, Product, utcnow
+from app.store.tables import Hold, Lot, Measurement, Panel, PanelEstimate, Product, utcnow
 
 HOLDING_LEVELS: Final = ("at_risk", "over_limit")
 AUTOMATIC: Final = "stackledger (automatic)"
 
 
-def _figures(state: PanelState) -> dict[str, Any]:
+def _figures(state: PanelEstimate) -> dict[str, Any]:
     forecast = state.forecast
     return {
         "ftb_worst_um": state.ftb_worst_um,
@@ -61,7 +61,7 @@ def _open_hold(session: Session, serial: str) -> Hold | None:
     ).first()
 
 
-def _worse_than_release(session: Session, serial: str, rule: str, state: PanelState) -> bool:
+def _worse_than_release(session: Session, serial: str, rule: str, state: PanelEstimate) -> bool:
     """Whether the panel may be held again for ``rule`` after its last release for it."""
     released = session.scalars(
         select(Hold)
@@ -77,7 +77,7 @@ def _worse_than_release(session: Session, serial: str, rule: str, state: PanelSt
 
 
 def apply_automatic(
-    session: Session, *, panel: Panel, state: PanelState, assessment: RiskAssessment
+    session: Session, *, panel: Panel, state: PanelEstimate, assessment: RiskAssessment
 ) -> Hold | None:
     """Put the panel on hold if its new state calls for it; returns the new hold, if any."""
     if assessment.level not in HOLDING_LEVELS or panel.status == PanelStatus.SCRAPPED:
@@ -102,13 +102,13 @@ def apply_automatic(
 def _with_panel() -> Select[Any]:
     """Holds with what the hold list shows of their panel, in one query (no lookups per row)."""
     return (
-        select(Hold, Lot.code, Product.code, Product.ftb_limit_um, PanelState.risk,
-               PanelState.layers_a, PanelState.layers_b, PanelState.ftb_worst_um,
-               PanelState.forecast, PanelState.p_exceed)
+        select(Hold, Lot.code, Product.code, Product.ftb_limit_um, PanelEstimate.risk,
+               PanelEstimate.layers_a, PanelEstimate.layers_b, PanelEstimate.ftb_worst_um,
+               PanelEstimate.forecast, PanelEstimate.p_exceed)
         .join(Panel, Panel.serial == Hold.panel)
         .join(Lot, Lot.id == Panel.lot_id)
         .join(Product, Product.id == Panel.product_id)
-        .outerjoin(PanelState, PanelState.panel == Hold.panel)
+        .outerjoin(PanelEstimate, PanelEstimate.panel == Hold.panel)
     )
 
 
@@ -145,7 +145,7 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
             raise Conflict(f"panel '{serial}' is scrapped; it cannot be held")
         if (existing := _open_hold(session, serial)) is not None:
             raise Conflict(f"panel '{serial}' already has an open hold ({existing.id})")
-        state = session.get(PanelState, serial)
+        state = session.get(PanelEstimate, serial)
         figures = _figures(state) if state else {}
         level = state.risk if state else "clear"
         hold = Hold(
@@ -164,7 +164,7 @@ def place(*, db: Database, serial: str, data: HoldCreate, principal: Principal) 
 
 
 def _all_layers_on(session: Session, panel: Panel) -> bool:
-    state = session.get(PanelState, panel.serial)
+    state = session.get(PanelEstimate, panel.serial)
     full = session.get_one(Product, panel.product_id).layers_per_side
     return state is not None and len(state.layers_a) == full and len(state.layers_b) == full
 
@@ -183,21 +183,21 @@ def _set_aside(session: Session, *, hold: Hold, side: str, layer: int) -> dict[s
     return {"side": side, "layer": layer, "set_aside_measurement": str(measurement.id)}
 
 
-def _recompute(db: Database, session: Session, panel: Panel) -> PanelState:
+def _recompute(db: Database, session: Session, panel: Panel) -> PanelEstimate:
     """The panel's estimate without the measurement a rework set aside (the layer counts as
     still to come). Setting a measurement aside changes what the product history learns, so
     its revision and cut-off move too (``app.services.history``)."""
     session.flush()
     product = session.get_one(Product, panel.product_id)
-    stored = session.get(PanelState, panel.serial)
-    estimate = state.compute(serial=panel.serial, product=product,
-                             layers=state.current_layers(session, panel.serial),
+    stored = session.get(PanelEstimate, panel.serial)
+    estimate = panel_estimate.compute(serial=panel.serial, product=product,
+                             layers=panel_estimate.current_layers(session, panel.serial),
                              histories=product_history(db, session, product=product),
                              previous_level=stored.risk if stored else None)
     panel.revision += 1
     session.execute(update(Product).where(Product.id == product.id).values(
         history_revision=Product.history_revision + 1, history_at=utcnow()))
-    return state.store(session, serial=panel.serial, estimate=estimate)
+    return panel_estimate.store(session, serial=panel.serial, estimate=estimate)
 
 
 def dispose(
@@ -218,7 +218,7 @@ def dispose(
         session.refresh(hold)
         if hold.state != "open":
             raise Conflict(f"hold '{hold_id}' was closed meanwhile ({hold.disposition})")
-        state = session.get(PanelState, hold.panel)
+        state = session.get(PanelEstimate, hold.panel)
         figures = _figures(state) if state else {}
         hold.state = "closed"
         hold.disposition = data.action

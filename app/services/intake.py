@@ -35,14 +35,14 @@ from app.overlay.fit import OverlayFit, fit_many, reach_of
 from app.overlay.frames import mirror_sites
 from app.overlay.layer_history import ProductHistory
 from app.schemas.text import control_problem
-from app.services import checks, holds, state
+from app.services import checks, holds, panel_estimate
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.checks import PanelFacts
 from app.services.history import product_history
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.services.products import check_points
 from app.store import bulk, sitepack
-from app.store.tables import Fit, Measurement, Panel, PanelState, Product, SiteSet, utcnow
+from app.store.tables import Fit, Measurement, Panel, PanelEstimate, Product, SiteSet, utcnow
 
 T = TypeVar("T")
 LayerKey = tuple[str, str, int]  # panel, side, layer
@@ -64,7 +64,7 @@ class Plan:
     histories: dict[int, ProductHistory]
     #: Each panel's stored level before the batch (the levels' hysteresis starts from it).
     levels: dict[str, str | None] = field(default_factory=dict)
-    estimates: dict[str, state.Estimate] = field(default_factory=dict)
+    estimates: dict[str, panel_estimate.Estimate] = field(default_factory=dict)
 
 
 @dataclass
@@ -88,9 +88,9 @@ def _facts(session: Session, serials: Iterable[str]
     for start in range(0, len(wanted), 500):
         rows = session.execute(
             select(Panel.serial, Panel.status, Panel.revision, Panel.completed_at, Product,
-                   PanelState.risk)
+                   PanelEstimate.risk)
             .join(Product, Product.id == Panel.product_id)
-            .outerjoin(PanelState, PanelState.panel == Panel.serial)
+            .outerjoin(PanelEstimate, PanelEstimate.panel == Panel.serial)
             .where(Panel.serial.in_(wanted[start:start + 500]))
         ).all()
         for serial, status, revision, completed_at, product, risk in rows:
@@ -100,7 +100,7 @@ def _facts(session: Session, serials: Iterable[str]
     return facts, revisions, completed
 
 
-def _in_force(layers: dict[str, state.Layers]) -> dict[LayerKey, uuid.UUID]:
+def _in_force(layers: dict[str, panel_estimate.Layers]) -> dict[LayerKey, uuid.UUID]:
     """The measurement in force for each panel, side and layer."""
     return {(serial, side, k): fit.measurement_id
             for serial, sides in layers.items() for side, by_layer in sides.items()
@@ -141,14 +141,14 @@ def _fit(sites: np.ndarray, counts: np.ndarray, products: list[Product]) -> list
     return fits
 
 
-def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, state.Layers]) -> None:
+def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, panel_estimate.Layers]) -> None:
     """Estimates of ``serials`` from their fits in force (``layers``) plus the batch's own."""
     batch = plan.batch
     wanted = set(serials)
     for j, serial in enumerate(batch.panel):
         if serial in wanted:
             fit = plan.fits[j]
-            layers[serial][batch.side[j]][int(batch.layer[j])] = state.CurrentLayer(
+            layers[serial][batch.side[j]][int(batch.layer[j])] = panel_estimate.CurrentLayer(
                 measurement_id=plan.ids[j], tool=batch.tool[j], measured_at=plan.times[j],
                 model=fit.model, note=fit.note, terms=np.asarray(fit.terms, dtype=np.float64),
                 sigma_um=(float(fit.sigma_um[0]), float(fit.sigma_um[1])),
@@ -156,7 +156,7 @@ def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, state.Layers
     first = {s: j for j, s in reversed(list(enumerate(batch.panel)))}
     for serial in wanted:
         product = plan.products[first[serial]]
-        plan.estimates[serial] = state.compute(
+        plan.estimates[serial] = panel_estimate.compute(
             serial=serial, product=product, layers=layers[serial],
             histories=plan.histories[product.id], previous_level=plan.levels.get(serial))
 
@@ -180,7 +180,7 @@ def prepare(
             raise InvalidInput(describe(errors), errors[:checks.MAX_REPORTED])
         products = [facts[p].product for p in batch.panel]  # type: ignore[union-attr]
         serials = sorted(set(batch.panel))
-        layers = state.current_layers_many(session, serials)
+        layers = panel_estimate.current_layers_many(session, serials)
         histories = {p.id: product_history(db, session, product=p)
                      for p in {p.id: p for p in products}.values()}
         in_force = _in_force(layers)
@@ -234,12 +234,12 @@ def _lock(session: Session, plan: Plan) -> dict[str, Panel]:
                                "checked; no further measurements are accepted for it")
         # Another write reached these panels after prepare: read their fits again, here,
         # under the lock, and compute their estimates again.
-        layers = state.current_layers_many(session, moved)
+        layers = panel_estimate.current_layers_many(session, moved)
         plan.in_force.update(_in_force(layers))
         for s in moved:
             plan.completed[s] = locked[s].completed_at is not None
-        plan.levels.update(session.execute(select(PanelState.panel, PanelState.risk)
-                                           .where(PanelState.panel.in_(moved))).tuples().all())
+        plan.levels.update(session.execute(select(PanelEstimate.panel, PanelEstimate.risk)
+                                           .where(PanelEstimate.panel.in_(moved))).tuples().all())
         _estimate(plan, moved, layers)
     return locked
 
@@ -313,7 +313,7 @@ def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel],
     its stack, a measurement was replaced, or the cut-off is older than history_refresh_s."""
     serials = sorted(panels)
     states = {st.panel: st for start in range(0, len(serials), 500) for st in session.scalars(
-        select(PanelState).where(PanelState.panel.in_(serials[start:start + 500])))}
+        select(PanelEstimate).where(PanelEstimate.panel.in_(serials[start:start + 500])))}
     history_changed: set[int] = set()
     now = utcnow()
     refresh = timedelta(seconds=get_settings().history_refresh_s)
@@ -323,7 +323,7 @@ def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel],
     with session.no_autoflush:
         for serial in serials:
             panel, estimate = panels[serial], plan.estimates[serial]
-            st = state.store(session, serial=serial, estimate=estimate,
+            st = panel_estimate.store(session, serial=serial, estimate=estimate,
                              existing=states.get(serial))
             panel.revision += 1
             panel.status = next_status(panel.status, PanelEvent.MEASURED,

@@ -23,7 +23,7 @@ from sqlalchemy import func, select, text
 from sqlalchemy.orm import Session
 
 from app.db import Database
-from app.store.tables import Hold, PanelState
+from app.store.tables import Hold, PanelEstimate
 
 METHODS: Final = frozenset({"GET", "HEAD", "POST", "PUT", "PATCH", "DELETE", "OPTIONS"})
 #: Upper bounds of the latency buckets, seconds (Prometheus client libraries' defaults).
@@ -129,8 +129,8 @@ def exposition(*, db: Database, requests: RequestMetrics) -> str:
             select(func.count()).select_from(Hold).where(Hold.state == "open")
         ) or 0
         by_risk = dict(session.execute(
-            select(PanelState.risk, func.count()).where(PanelState.risk.in_(WATCHED_RISKS))
-            .group_by(PanelState.risk)
+            select(PanelEstimate.risk, func.count()).where(PanelEstimate.risk.in_(WATCHED_RISKS))
+            .group_by(PanelEstimate.risk)
         ).all())
     lines += [
         "# HELP stackledger_measurements_stored Measurements in the store, superseded included "

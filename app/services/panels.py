@@ -24,18 +24,18 @@ from app.schemas.panels import (
     StackLayerRead,
     StackRead,
 )
-from app.services import audit, state
+from app.services import audit, panel_estimate
 from app.services import cursor as cursors
 from app.services.lifecycle import PanelStatus
 from app.services.products import get_by_code_or_raise
-from app.store.tables import Lot, Panel, PanelState, Product, utcnow
+from app.store.tables import Lot, Panel, PanelEstimate, Product, utcnow
 from app.store.upsert import insert_ignore
 
 SORTS = {
     "serial": (Panel.serial,),
-    "ftb": (PanelState.ftb_worst_um,),
-    "p_exceed": (PanelState.p_exceed,),
-    "updated": (PanelState.updated_at,),
+    "ftb": (PanelEstimate.ftb_worst_um,),
+    "p_exceed": (PanelEstimate.p_exceed,),
+    "updated": (PanelEstimate.updated_at,),
 }
 
 
@@ -46,9 +46,9 @@ def get_or_raise(session: Session, serial: str) -> Panel:
     return panel
 
 
-def _empty_state(panel: Panel) -> PanelState:
+def _empty_state(panel: Panel) -> PanelEstimate:
     """The state of a registered panel with no measurement yet."""
-    return PanelState(
+    return PanelEstimate(
         panel=panel.serial, layers_a=[], layers_b=[], missing_a=[], missing_b=[],
         ftb_worst_um=0.0, ftb_worst_x_mm=0.0, ftb_worst_y_mm=0.0, ftb_points=[],
         l2l_worst_um=0.0, stack=None, forecast=None, p_exceed=None, risk="clear",
@@ -56,7 +56,7 @@ def _empty_state(panel: Panel) -> PanelState:
     )
 
 
-def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelState) -> PanelRead:
+def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelEstimate) -> PanelRead:
     return PanelRead(
         serial=panel.serial,
         product=product_code,
@@ -80,7 +80,7 @@ def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelState) -
 def to_read(session: Session, panel: Panel) -> PanelRead:
     product = session.get_one(Product, panel.product_id)
     lot = session.get_one(Lot, panel.lot_id)
-    st = session.get(PanelState, panel.serial) or _empty_state(panel)
+    st = session.get(PanelEstimate, panel.serial) or _empty_state(panel)
     return read_model(panel, product.code, lot.code, st)
 
 
@@ -140,10 +140,10 @@ def list_panels(
     (key,) = SORTS[sort]
     with db.reading() as session:
         query: Select[Any] = (
-            select(Panel, Product.code, Lot.code, PanelState)
+            select(Panel, Product.code, Lot.code, PanelEstimate)
             .join(Product, Product.id == Panel.product_id)
             .join(Lot, Lot.id == Panel.lot_id)
-            .outerjoin(PanelState, PanelState.panel == Panel.serial)
+            .outerjoin(PanelEstimate, PanelEstimate.panel == Panel.serial)
         )
         if product:
             query = query.where(Product.code == product)
@@ -152,7 +152,7 @@ def list_panels(
         if status:
             query = query.where(Panel.status == status)
         if risk:
-            query = query.where(PanelState.risk == risk)
+            query = query.where(PanelEstimate.risk == risk)
         if sort == "p_exceed":
             query = query.where(key.is_not(None))  # a panel with no measurement has no forecast
         if cursor:
@@ -185,8 +185,8 @@ def stack(*, db: Database, serial: str) -> StackRead:
     """Per side and layer: the fit in force, its L2L worst and the cumulative FTB worst."""
     with db.reading() as session:
         panel = get_or_raise(session, serial)
-        st = session.get(PanelState, serial)
-        layers = state.current_layers(session, serial)
+        st = session.get(PanelEstimate, serial)
+        layers = panel_estimate.current_layers(session, serial)
         summary = st.stack if st is not None else None
         worst_at = (st.ftb_worst_x_mm, st.ftb_worst_y_mm) if st is not None else (0.0, 0.0)
         faces = {(c.side, c.layer): c for c in summary.capture} if summary else {}

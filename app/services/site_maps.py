@@ -6,7 +6,7 @@ from __future__ import annotations
 from app.db import Database
 from app.overlay.model import evaluate
 from app.schemas.sites import LayerSitesRead, PanelSitesRead, SiteVector
-from app.services import state
+from app.services import panel_estimate
 from app.services.panels import get_or_raise
 from app.store import sitepack
 from app.store.tables import SiteSet
@@ -17,7 +17,7 @@ def panel_sites(*, db: Database, serial: str, side: str | None = None,
     """Measured and residual site vectors (panel frame) per side and layer in force."""
     with db.reading() as session:
         get_or_raise(session, serial)
-        layers = state.current_layers(session, serial)
+        layers = panel_estimate.current_layers(session, serial)
         chosen = [(s, k, cl) for s in ("A", "B") for k, cl in sorted(layers[s].items())
                   if (side is None or s == side) and (layer is None or k == layer)]
         out = []

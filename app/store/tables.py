@@ -226,7 +226,7 @@ class Fit(Base):
     leverage: Mapped[float | None]
 
 
-class PanelState(Base):
+class PanelEstimate(Base):
     """The running estimate of a panel, rewritten in the transaction of every accepted
     measurement, so that reads never recompute from raw data."""
 

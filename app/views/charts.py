@@ -3,7 +3,7 @@
 Pure functions from typed service data to SVG text (escaped, ready for a template). Every
 chart has a title and description for screen readers, axis labels with units, and tells its
 series apart by line style and marker shape as well as colour (WCAG 2.2, 1.4.1).
-Panel-frame convention (DOMAIN.md): x right, y up, looking at side A; SVG's y runs down, so
+Panel-frame convention (conventions.md): x right, y up, looking at side A; SVG's y runs down, so
 y is negated when drawn.
 """
 

@@ -2,7 +2,7 @@
 
 Side B's terms go back to the tool frame through the same mirror that brought them into the
 panel frame (``app.overlay.frames.mirror_terms``, its own inverse). Rotation and
-non-orthogonality are re-derived from Ox and Oy after the mirror (DOMAIN.md: rotation =
+non-orthogonality are re-derived from Ox and Oy after the mirror (docs/conventions.md: rotation =
 (Ox + Oy)/2, non-orthogonality = Oy - Ox).
 """
 

@@ -95,7 +95,7 @@ def test_panel_frame_vectors_are_mirrored_and_residuals_add_up(db):
                                 np.array([v["y_mm_posted"] for v in s]),
                                 np.array([v["dx_um_posted"] for v in s]),
                                 np.array([v["dy_um_posted"] for v in s]), side="B", flip_axis="x")
-    # Flip about x: y and dy change sign, x and dx are kept (DOMAIN.md, frames).
+    # Flip about x: y and dy change sign, x and dx are kept (docs/conventions.md, frames).
     np.testing.assert_allclose(x, [v["x_mm"] for v in s])
     np.testing.assert_allclose(dx, [v["dx_um"] for v in s])
     np.testing.assert_allclose(y, [v["y_mm"] for v in s])

@@ -16,7 +16,7 @@ from sqlalchemy import func, select
 from app.config import get_settings
 from app.schemas.holds import DispositionCreate, HoldCreate
 from app.services import holds, keys, rejections
-from app.store.tables import Fit, Measurement, PanelState, RejectedUpload, SiteSet
+from app.store.tables import Fit, Measurement, PanelEstimate, RejectedUpload, SiteSet
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
 HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um"
@@ -122,7 +122,7 @@ def _snapshot(db) -> tuple:
     with db.transaction() as s:
         counts = tuple(int(s.scalar(select(func.count()).select_from(t)))
                        for t in (Measurement, SiteSet, Fit))
-        st = s.get(PanelState, "P0001")
+        st = s.get(PanelEstimate, "P0001")
         return (*counts, st.ftb_worst_um, st.updated_at)
 
 

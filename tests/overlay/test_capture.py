@@ -32,7 +32,7 @@ def monte_carlo_miss(mean: tuple[float, float], sigma: tuple[float, float], marg
 
 
 def test_capture_margin() -> None:
-    # DOMAIN.md: m = (D_pad - D_via) / 2.
+    # docs/conventions.md: m = (D_pad - D_via) / 2.
     assert capture_margin_um(35.0, 60.0) == 12.5
     geometry = ViaGeometry(35.0, 60.0, {5: (30.0, 60.0)})
     assert geometry.margin_um(4) == 12.5
@@ -49,7 +49,7 @@ def test_capture_margin_needs_pad_larger_than_via(via: float, pad: float) -> Non
 
 @pytest.mark.parametrize("mean, sigma", [((4.0, -3.0), 2.0), ((0.0, 0.0), 5.0), ((11.0, 2.0), 1.2)])
 def test_isotropic_miss_is_the_rice_tail(mean: tuple[float, float], sigma: float) -> None:
-    # reference: scipy.stats.rice (DOMAIN.md: P(|d| > r) = rice.sf(r, R/s, scale=s)), and a
+    # reference: scipy.stats.rice (conventions.md: P(|d| > r) = rice.sf(r, R/s, scale=s)), and a
     # seeded Monte Carlo that does not go through the formula at all.
     p = float(miss_probability(mean, (sigma, sigma), 12.5)[0])
     assert p == pytest.approx(stats.rice.sf(12.5, math.hypot(*mean) / sigma, scale=sigma))

@@ -160,7 +160,7 @@ def test_reported_units() -> None:
     pts = grid()
     dx, dy = displaced(TERMS, pts)
     fit = fit_measurement(pts[:, 0], pts[:, 1], dx, dy, trapezoid=True)
-    # 1 um/mm = 1000 ppm = 1000 urad (DOMAIN.md); rotation (Ox+Oy)/2, non-orthogonality Oy-Ox.
+    # 1 um/mm = 1000 ppm = 1000 urad (conventions.md); rotation (Ox+Oy)/2, non-orthogonality Oy-Ox.
     assert_allclose(fit.scale_ppm, (3.0, -2.0), rtol=1e-9)
     assert_allclose(fit.orientation_urad, (1.2, 0.8), rtol=1e-9)
     assert fit.rotation_urad == pytest.approx(1.0, rel=1e-9)

@@ -1,4 +1,4 @@
-"""Side-B mirror: involution, commutes with the fit, and the sign table of DOMAIN.md."""
+"""Side-B mirror: involution, commutes with the fit, and the sign table of docs/conventions.md."""
 
 from __future__ import annotations
 
@@ -88,7 +88,7 @@ def test_mirror_terms_of_fit_equals_fit_of_mirrored_sites(
     assert_allclose(panel.sigma_um, tool.sigma_um, rtol=1e-9, atol=1e-9)
 
 
-# DOMAIN.md, flip about y: Tx, Ox, Oy change sign; Sx, Sy unchanged; Kx unchanged, Ky changes.
+# conventions.md, flip about y: Tx, Ox, Oy change sign; Sx, Sy unchanged; Kx unchanged, Ky changes.
 # Flip about x, derived the same way (exchange the roles of x and y): Ty, Ox, Oy, Kx change.
 SIGN_TABLE = {
     "y": {"Tx": -1, "Ty": 1, "Sx": 1, "Sy": 1, "Ox": -1, "Oy": -1, "Kx": 1, "Ky": -1},

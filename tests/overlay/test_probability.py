@@ -100,7 +100,7 @@ def test_small_exceedance_keeps_relative_accuracy() -> None:
 
 @pytest.mark.parametrize("k, covered", [(3.0, 0.9889), (3.44, 0.9973)])
 def test_rayleigh_coverage(k: float, covered: float) -> None:
-    # DOMAIN.md: a 3-sigma radius covers only 98.89 %, the 99.73 % radius is 3.44 sigma.
+    # docs/conventions.md: a 3-sigma radius covers only 98.89 %, the 99.73 % radius is 3.44 sigma.
     s = 2.5
     inside = 1.0 - p_outside_circle(np.zeros(2), s * s * np.eye(2), k * s)
     # reference: Rayleigh closed form P(|d| <= k s) = 1 - exp(-k^2 / 2)

@@ -92,7 +92,7 @@ def test_levels_are_ordered_by_severity() -> None:
         severity("hold")
 
 
-# reference for the rule table: DOMAIN.md, forecast and risk, and the product's limits;
+# reference for the rule table: docs/conventions.md, forecast and risk, and the product's limits;
 # the 70 % watch fraction and the 0.05 / 0.20 probabilities are common practice (product
 # settings).
 @pytest.mark.parametrize(
@@ -123,7 +123,7 @@ def test_probability_rules(p: float, level: str, rule: str) -> None:
     ],
 )
 def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
-    # reference: common practice (watch from 70 % of a limit); DOMAIN.md (FTB limit)
+    # reference: common practice (watch from 70 % of a limit); docs/conventions.md (FTB limit)
     result = run(ftb=ftb, fc=forecast(0.01))
     assert (result.level, result.rule) == (level, rule)
     text = " ".join(result.reasons)
@@ -141,7 +141,7 @@ def test_watch_fraction_is_a_setting() -> None:
 
 
 def test_l2l_over_limit_on_either_side() -> None:
-    # reference: DOMAIN.md (L2L limit per layer)
+    # reference: docs/conventions.md (L2L limit per layer)
     result = run(l2l_a={1: 4.0, 4: 13.2}, l2l_b={2: 12.5})
     assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
     assert any("Side A layer 4" in r and "13.2 um" in r and "12 um" in r for r in result.reasons)

@@ -19,7 +19,7 @@ def translation(tx: float, ty: float = 0.0, layers: int = LAYERS) -> np.ndarray:
     return np.tile([tx, ty, 0, 0, 0, 0, 0, 0.0], (layers, 1))
 
 
-# Summation over the stack (common practice, DOMAIN.md "Accumulation"): a bias both sides'
+# Summation over the stack (common practice, docs/conventions.md "Accumulation"): a bias both sides'
 # tools show the same way in their own frames adds up front to back once side B is mirrored;
 # along the axis the flip keeps it cancels. 24 layers x 5 um = 120 um.
 @pytest.mark.parametrize(

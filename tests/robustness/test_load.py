@@ -19,7 +19,7 @@ from sqlalchemy import select
 
 from app.services.products import check_points
 from app.store import sitepack
-from app.store.tables import Measurement, PanelState, Product, SiteSet
+from app.store.tables import Measurement, PanelEstimate, Product, SiteSet
 from tests.factories import make_keys, make_panel, make_product, measurement
 from tests.robustness.live import live_server, store_url
 
@@ -49,7 +49,7 @@ def _plan(rng: np.random.Generator) -> list[list[tuple[dict, str, int]]]:
 def _reference_ftb_worst(sites_by_layer: dict[tuple[str, int], np.ndarray],
                          points: np.ndarray) -> float:
     """FTB worst over ``points`` from panel-frame sites: each layer fitted by
-    numpy.linalg.lstsq to dx = Tx + Sx x - Ox y, dy = Ty + Sy y + Oy x (DOMAIN.md's per-layer
+    numpy.linalg.lstsq to dx = Tx + Sx x - Ox y, dy = Ty + Sy y + Oy x (conventions.md's per-layer
     model, 6 terms), side A summed minus side B summed, evaluated at the check points."""
     total = np.zeros((len(points), 2))
     for (side, _layer), s in sites_by_layer.items():
@@ -119,6 +119,6 @@ def test_sixteen_clients_lose_nothing_and_store_nothing_twice(db):
                 if panel == serial:
                     pack = session.get_one(SiteSet, (serial, mid))
                     layers[(side, layer)] = sitepack.unpack(pack.panel_frame)
-            state = session.get(PanelState, serial)
+            state = session.get(PanelEstimate, serial)
             expected = _reference_ftb_worst(layers, points) if layers else 0.0
             assert state.ftb_worst_um == pytest.approx(expected, abs=1e-6), serial

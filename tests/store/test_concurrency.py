@@ -12,10 +12,10 @@ from app.errors import Conflict, DomainError, InvalidInput
 from app.schemas.measurements import MeasurementCreate
 from app.schemas.panels import PanelCreate
 from app.schemas.products import ProductCreate
-from app.services import keys, measurements, panels, products, state
+from app.services import keys, measurements, panel_estimate, panels, products
 from app.services.history import product_history
 from app.services.keys import Principal
-from app.store.tables import Measurement, Panel, PanelState, Product
+from app.store.tables import Measurement, Panel, PanelEstimate, Product
 from tests.factories import make_panel, make_product, measurement, product_data
 
 
@@ -45,10 +45,10 @@ def test_parallel_posts_all_land(db):
             panel = s.get(Panel, serial)
             assert panel.revision == 6
             product = s.get(Product, panel.product_id)
-            fresh = state.compute(serial=serial, product=product,
-                                  layers=state.current_layers(s, serial),
+            fresh = panel_estimate.compute(serial=serial, product=product,
+                                  layers=panel_estimate.current_layers(s, serial),
                                   histories=product_history(db, s, product=product))
-            stored = s.get(PanelState, serial)
+            stored = s.get(PanelEstimate, serial)
             assert stored.layers_a == [1, 2, 3] and stored.layers_b == [1, 2, 3]
             assert stored.ftb_worst_um == fresh.values["ftb_worst_um"]
             assert stored.p_exceed == fresh.values["p_exceed"]

@@ -22,7 +22,7 @@ def test_tool_frame_row_gives_back_the_terms_the_tool_posted(db, flip):
                       headers=k.headers("tool")).status_code == 201
     rows = layer_rows(panels.stack(db=db, serial="P0001").layers, flip_axis=flip)
     # The posted sites are exact (no noise), so the fit in the tool frame is the posted terms
-    # (DOMAIN.md, reported units: 1 um/mm = 1000 ppm = 1000 urad).
+    # (docs/conventions.md, reported units: 1 um/mm = 1000 ppm = 1000 urad).
     want = (posted[0], posted[1], posted[2] * 1000, posted[3] * 1000,
             (posted[4] + posted[5]) / 2 * 1000, (posted[5] - posted[4]) * 1000)
     for row in rows:

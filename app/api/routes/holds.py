@@ -6,7 +6,7 @@ from fastapi import APIRouter
 from fastapi import Query as QueryParam
 from fastapi.responses import PlainTextResponse
 
-from app.api.deps import DbDep, Dispose, Query
+from app.api.deps import DbDep, Disposition, ReadPanels
 from app.api.problems import PROBLEM_RESPONSES
 from app.schemas.holds import CAUTION, DispositionCreate, HoldList, HoldRead
 from app.services import holds
@@ -18,7 +18,7 @@ router = APIRouter(prefix="/api/v1/holds", tags=["holds"], responses=PROBLEM_RES
 @router.get("", response_model=HoldList)
 def list_holds(
     db: DbDep,
-    _: Query,
+    _: ReadPanels,
     state: Literal["open", "closed"] = "open",
     limit: Annotated[int, QueryParam(ge=1, le=500)] = 50,
     cursor: str | None = None,
@@ -37,7 +37,7 @@ def list_holds(
     "headers": {"Stackledger-Caution": {"description": "Who decides dispositions",
                                         "schema": {"type": "string"}}}}})
 def list_holds_csv(
-    db: DbDep, _: Query, state: Literal["open", "closed"] = "open",
+    db: DbDep, _: ReadPanels, state: Literal["open", "closed"] = "open",
     product: Annotated[str | None, QueryParam(max_length=64)] = None,
     lot: Annotated[str | None, QueryParam(max_length=64)] = None,
     rule: Annotated[str | None, QueryParam(max_length=40)] = None,
@@ -50,7 +50,8 @@ def list_holds_csv(
     })
 
 
-@router.post("/{hold_id}/disposition", response_model=HoldRead)
-def dispose(hold_id: str, data: DispositionCreate, db: DbDep, who: Dispose) -> HoldRead:
+@router.post("/{hold_id}/disposition", response_model=HoldRead, summary="Record a disposition")
+def record_disposition(hold_id: str, data: DispositionCreate, db: DbDep,
+                       who: Disposition) -> HoldRead:
     """Release, scrap or rework a held panel, with a required note (supervisor or admin)."""
     return holds.dispose(db=db, hold_id=hold_id, data=data, principal=who)

@@ -5,7 +5,7 @@ from typing import Annotated, Literal
 from fastapi import APIRouter
 from fastapi import Query as QueryParam
 
-from app.api.deps import DbDep, Query
+from app.api.deps import DbDep, ReadPanels
 from app.api.problems import PROBLEM_RESPONSES
 from app.schemas.sites import PanelSitesRead
 from app.services import site_maps
@@ -15,7 +15,7 @@ router = APIRouter(prefix="/api/v1/panels", tags=["panels"], responses=PROBLEM_R
 
 @router.get("/{serial}/sites", response_model=PanelSitesRead)
 def panel_sites(
-    serial: str, db: DbDep, _: Query, side: Literal["A", "B"] | None = None,
+    serial: str, db: DbDep, _: ReadPanels, side: Literal["A", "B"] | None = None,
     layer: Annotated[int | None, QueryParam(ge=1, le=64)] = None,
 ) -> PanelSitesRead:
     """Measured and residual site vectors (panel frame) of the measurements in force."""

@@ -4,8 +4,7 @@ from typing import Annotated, Literal
 
 from fastapi import APIRouter, Query, Response
 
-from app.api.deps import DbDep, PlaceHold, RegisterPanel
-from app.api.deps import Query as QueryKey
+from app.api.deps import DbDep, PlaceHold, ReadPanels, RegisterPanel
 from app.api.problems import PROBLEM_RESPONSES
 from app.schemas.holds import HoldCreate, HoldRead
 from app.schemas.panels import PanelCreate, PanelPage, PanelRead, PanelStatus, RiskLevel, StackRead
@@ -28,7 +27,7 @@ def register_panel(data: PanelCreate, db: DbDep, who: RegisterPanel,
 @router.get("", response_model=PanelPage)
 def list_panels(
     db: DbDep,
-    _: QueryKey,
+    _: ReadPanels,
     product: str | None = None,
     lot: str | None = None,
     status: PanelStatus | None = None,
@@ -46,13 +45,13 @@ def list_panels(
 
 
 @router.get("/{serial}", response_model=PanelRead)
-def get_panel(serial: str, db: DbDep, _: QueryKey) -> PanelRead:
+def get_panel(serial: str, db: DbDep, _: ReadPanels) -> PanelRead:
     """A panel's running estimate: layers, FTB at the check points, risk and forecast."""
     return panels.get(db=db, serial=serial)
 
 
 @router.get("/{serial}/stack", response_model=StackRead)
-def get_stack(serial: str, db: DbDep, _: QueryKey) -> StackRead:
+def get_stack(serial: str, db: DbDep, _: ReadPanels) -> StackRead:
     """Per side and layer: the fit in force, its L2L worst and the cumulative FTB worst."""
     return panels.stack(db=db, serial=serial)
 

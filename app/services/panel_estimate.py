@@ -34,7 +34,7 @@ from app.store.stored import (
     StoredPoint,
     StoredStack,
 )
-from app.store.tables import Fit, Measurement, PanelState, Product, utcnow
+from app.store.tables import Fit, Measurement, PanelEstimate, Product, utcnow
 
 #: What a state rebuild and the stack view read of each measurement in force: plain columns,
 #: not ORM objects (for an import's hundreds of panels that is a tenth of the cost).
@@ -289,12 +289,12 @@ def compute(
 
 
 def store(session: Session, *, serial: str, estimate: Estimate,
-          existing: PanelState | None = None) -> PanelState:
+          existing: PanelEstimate | None = None) -> PanelEstimate:
     """Write the estimate into the panel's state row (created at registration)."""
-    state = existing if existing is not None else session.get(PanelState, serial)
+    state = existing if existing is not None else session.get(PanelEstimate, serial)
     values = {**estimate.values, "updated_at": utcnow()}
     if state is None:
-        state = PanelState(panel=serial, **values)
+        state = PanelEstimate(panel=serial, **values)
         session.add(state)
     else:
         for k, v in values.items():
