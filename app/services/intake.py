@@ -238,8 +238,8 @@ def _lock(session: Session, plan: Plan) -> dict[str, Panel]:
         plan.in_force.update(_in_force(layers))
         for s in moved:
             plan.completed[s] = locked[s].completed_at is not None
-        plan.levels.update(session.execute(select(PanelEstimate.panel, PanelEstimate.risk)
-                                           .where(PanelEstimate.panel.in_(moved))).tuples().all())
+        plan.levels.update((serial, risk) for serial, risk in session.execute(
+            select(PanelEstimate.panel, PanelEstimate.risk).where(PanelEstimate.panel.in_(moved))))
         _estimate(plan, moved, layers)
     return locked
 
