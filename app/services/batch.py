@@ -12,7 +12,10 @@ Columns are per measurement (``panel`` .. ``genealogy``, ``counts``) or per site
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from functools import cached_property
 from typing import Final, Protocol
 
 import numpy as np
@@ -23,6 +26,7 @@ from app.errors import FieldError
 #: Optional fields a fab may post with a measurement (all text, 64 characters at most).
 GENEALOGY: Final = ("metrology_tool", "recipe", "artwork", "shift")
 SITE_FIELDS: Final = ("x_mm", "y_mm", "dx_um", "dy_um")
+_ZONED: Final = re.compile(r"(?:Z|z|[+-]\d\d(?::?\d\d)?)$")
 
 
 class Locator(Protocol):
@@ -70,6 +74,11 @@ class MeasurementBatch:
     def __len__(self) -> int:
         return len(self.panel)
 
+    @cached_property
+    def times(self) -> list[datetime | None]:
+        """``measured_at`` parsed once (None where it is not an ISO 8601 time with a zone)."""
+        return parse_times(self.measured_at)
+
     @property
     def starts(self) -> NDArray[np.int64]:
         """Index of each measurement's first site row."""
@@ -84,3 +93,25 @@ class MeasurementBatch:
         columns = [(name, self.genealogy.get(name)) for name in GENEALOGY]
         return [{name: values[i] if values else None for name, values in columns}
                 for i in range(len(self))]
+
+
+def parse_times(texts: list[str]) -> list[datetime | None]:
+    """ISO 8601 times with a time zone, as aware UTC datetimes; None where a text is not one.
+    Each distinct text is parsed once (a measurement's rows share one)."""
+    seen: dict[str, datetime | None] = {}
+    out: list[datetime | None] = []
+    for text in texts:
+        if text not in seen:
+            seen[text] = _time(text)
+        out.append(seen[text])
+    return out
+
+
+def _time(text: object) -> datetime | None:
+    if not isinstance(text, str) or not _ZONED.search(text.strip()):
+        return None
+    try:
+        stamp = datetime.fromisoformat(text.strip())
+    except ValueError:
+        return None
+    return stamp.astimezone(UTC) if stamp.tzinfo is not None else None

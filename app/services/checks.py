@@ -13,10 +13,8 @@ that one cause does not read as many.
 
 from __future__ import annotations
 
-import re
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
-from datetime import UTC, datetime
 from typing import Final
 
 import numpy as np
@@ -30,7 +28,6 @@ from app.store.tables import Product
 
 MAX_REPORTED: Final = 200
 TEXT_MAX: Final = 64
-_ZONED = re.compile(r"(?:Z|z|[+-]\d\d(?::?\d\d)?)$")
 
 
 @dataclass(frozen=True)
@@ -51,28 +48,6 @@ class Problem:
 
 
 Check = Callable[[MeasurementBatch, list["PanelFacts | None"], np.ndarray], Iterator[Problem]]
-
-
-def parse_times(texts: list[str]) -> list[datetime | None]:
-    """ISO 8601 times with a time zone, as aware UTC datetimes; None where a text is not one.
-    Each distinct text is parsed once (a measurement's rows share one)."""
-    seen: dict[str, datetime | None] = {}
-    out: list[datetime | None] = []
-    for text in texts:
-        if text not in seen:
-            seen[text] = _time(text)
-        out.append(seen[text])
-    return out
-
-
-def _time(text: object) -> datetime | None:
-    if not isinstance(text, str) or not _ZONED.search(text.strip()):
-        return None
-    try:
-        stamp = datetime.fromisoformat(text.strip())
-    except ValueError:
-        return None
-    return stamp.astimezone(UTC) if stamp.tzinfo is not None else None
 
 
 # ------------------------------------------------------------------ checks of the measurement
@@ -105,7 +80,7 @@ def _text_problem(name: str, value: str | None, required: bool) -> str | None:
 
 def _fields(batch: MeasurementBatch, facts: list[PanelFacts | None],
             usable: np.ndarray) -> Iterator[Problem]:
-    times = parse_times(batch.measured_at)
+    times = batch.times
     optional = [(name, batch.genealogy[name]) for name in GENEALOGY if name in batch.genealogy]
     for i in np.flatnonzero(usable).tolist():
         product = facts[i].product  # type: ignore[union-attr]

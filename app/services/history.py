@@ -21,16 +21,17 @@ stack, when a measurement is replaced, and when the cut-off is older than
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from datetime import datetime
 
 import numpy as np
-from sqlalchemy import func, select
+from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
 from app.db import Database
 from app.overlay.layer_history import ProductHistory, learn_history, limit_variance
-from app.store.tables import Fit, Measurement, Panel, Product
+from app.store.tables import Fit, Measurement, Panel, Product, utcnow
 
 
 def limit_var(product: Product) -> np.ndarray:
@@ -97,6 +98,16 @@ def learn(session: Session, *, product: Product) -> ProductHistory:
         terms, present, tools, tuple(names), panel_ids=tuple(serials),
         flip_axis=product.flip_axis, limit_var=limit_var(product),
     )
+
+
+def move_cut_off(session: Session, product_ids: Iterable[int],
+                 at: datetime | None = None) -> None:
+    """A new history revision with its cut-off at ``at`` (now), in the caller's transaction:
+    what the product history learns has changed (see the module docstring)."""
+    ids = sorted(set(product_ids))
+    if ids:
+        session.execute(update(Product).where(Product.id.in_(ids)).values(
+            history_revision=Product.history_revision + 1, history_at=at or utcnow()))
 
 
 def product_history(db: Database, session: Session, *, product: Product) -> ProductHistory:

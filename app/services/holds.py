@@ -23,7 +23,7 @@ from __future__ import annotations
 import uuid
 from typing import Any, Final
 
-from sqlalchemy import ColumnElement, Row, Select, and_, or_, select, update
+from sqlalchemy import ColumnElement, Row, Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
@@ -32,7 +32,7 @@ from app.overlay.risk import RiskAssessment, severity
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit, panel_estimate
 from app.services import cursor as cursors
-from app.services.history import product_history
+from app.services.history import move_cut_off, product_history
 from app.services.inputs import refuse_nul
 from app.services.keys import Principal
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
@@ -195,8 +195,7 @@ def _recompute(db: Database, session: Session, panel: Panel) -> PanelEstimate:
                              histories=product_history(db, session, product=product),
                              previous_level=stored.risk if stored else None)
     panel.revision += 1
-    session.execute(update(Product).where(Product.id == product.id).values(
-        history_revision=Product.history_revision + 1, history_at=utcnow()))
+    move_cut_off(session, [product.id])
     return panel_estimate.store(session, serial=panel.serial, estimate=estimate)
 
 

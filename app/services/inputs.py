@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 from app.errors import FieldError, InvalidInput
+from app.schemas.text import control_problem
 
 
 def refuse_nul(**values: str | None) -> None:
-    """A NUL cannot be stored or compared by PostgreSQL (SQLite would take it): refuse it by
-    name, the same on both databases."""
-    bad = [name for name, v in values.items() if v is not None and "\0" in v]
+    """Refuse a filter or field with a control character by name (a NUL cannot be stored or
+    compared by PostgreSQL), with the one rule for strings (``app.schemas.text``)."""
+    bad = [(name, problem) for name, v in values.items()
+           if v is not None and (problem := control_problem(v, multiline=True))]
     if bad:
-        raise InvalidInput("a filter or field contains a NUL character",
-                           [FieldError("NUL character", pointer=f"query:/{n}") for n in bad])
+        raise InvalidInput(f"{bad[0][0]} {bad[0][1]}",
+                           [FieldError(problem, pointer=f"query:/{n}") for n, problem in bad])

@@ -25,7 +25,7 @@ from datetime import datetime, timedelta
 from typing import Any, TypeVar
 
 import numpy as np
-from sqlalchemy import select, update
+from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app.config import get_settings
@@ -38,7 +38,7 @@ from app.schemas.text import control_problem
 from app.services import checks, holds, panel_estimate
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.checks import PanelFacts
-from app.services.history import product_history
+from app.services.history import move_cut_off, product_history
 from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.services.products import check_points
 from app.store import bulk, sitepack
@@ -187,7 +187,7 @@ def prepare(
     sites = _to_panel_frame(batch, products)
     plan = Plan(
         batch=batch, products=products,
-        times=[t for t in checks.parse_times(batch.measured_at) if t is not None],
+        times=[t for t in batch.times if t is not None],
         panel_sites=sites, fits=_fit(sites, batch.counts, products),
         ids=[uuid.uuid4() for _ in range(len(batch))], revisions=revisions,
         completed=completed, in_force=in_force, histories=histories,
@@ -335,9 +335,7 @@ def _store_estimates(session: Session, plan: Plan, panels: dict[str, Panel],
                     panel.completed_at = now
             holds.apply_automatic(session, panel=panel, state=st,
                                   assessment=estimate.assessment)
-    if history_changed:
-        session.execute(update(Product).where(Product.id.in_(sorted(history_changed)))
-                        .values(history_revision=Product.history_revision + 1, history_at=now))
+    move_cut_off(session, history_changed, at=now)
 
 
 __all__ = ["GENEALOGY", "Outcome", "Plan", "prepare", "write"]

@@ -29,8 +29,6 @@ from app.views.analysis import tables, to_csv, to_parquet
 
 router = APIRouter(prefix="/api/v1/analysis", tags=["analysis"], responses=PROBLEM_RESPONSES)
 
-FILTERS = ("product", "tool", "side", "layer", "lot", "from", "to")
-OUTPUT = ("format", "table")
 TABLE_RESPONSES: dict[int | str, dict[str, object]] = {
     200: {"content": {"text/csv": {}, "application/vnd.apache.parquet": {}}}}
 Format = Literal["json", "csv", "parquet"]
