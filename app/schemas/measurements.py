@@ -7,6 +7,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from app.schemas.figures import PointOut, Ppm, Um, Urad
 from app.schemas.panels import PanelRead
+from app.services.batch import LAYER_BOUND
 
 # The schema gives shape and types only. What a value must be (side A or B, a time with a zone,
 # a finite number on the panel, ...) is checked by the one catalogue that CSV imports go
@@ -33,7 +34,10 @@ class MeasurementCreate(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     panel: str = _text("Panel serial.")  # type: ignore[assignment]
-    layer: int = Field(description="Build-up layer, 1..layers_per_side of the product.")
+    # The bound is the reader's (a number that cannot be any layer); the product's own range
+    # is the catalogue's check.
+    layer: int = Field(ge=-LAYER_BOUND, le=LAYER_BOUND,
+                       description="Build-up layer, 1..layers_per_side of the product.")
     side: str = Field(description="Side of the panel.", json_schema_extra={"enum": ["A", "B"]})
     frame: str = Field(default="tool", description="Frame of the site coordinates and vectors: "
                        "'tool' as the metrology tool saw the side, or 'panel'.",

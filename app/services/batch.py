@@ -26,6 +26,9 @@ from app.errors import FieldError
 #: Optional fields a fab may post with a measurement (all text, 64 characters at most).
 GENEALOGY: Final = ("metrology_tool", "recipe", "artwork", "shift")
 SITE_FIELDS: Final = ("x_mm", "y_mm", "dx_um", "dy_um")
+#: Beyond this a layer number is not read at all (it could not be any layer, and would not fit
+#: the batch's integers); within it, the product's range is checked by the catalogue.
+LAYER_BOUND: Final = 1_000_000
 _ZONED: Final = re.compile(r"(?:Z|z|[+-]\d\d(?::?\d\d)?)$")
 
 

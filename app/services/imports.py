@@ -33,7 +33,13 @@ from app.db import Database
 from app.errors import DomainError, FieldError, InvalidInput
 from app.schemas.measurements import ImportRead
 from app.services import idempotency, intake, rejections
-from app.services.batch import GENEALOGY, SITE_FIELDS, CsvLocator, MeasurementBatch
+from app.services.batch import (
+    GENEALOGY,
+    LAYER_BOUND,
+    SITE_FIELDS,
+    CsvLocator,
+    MeasurementBatch,
+)
 from app.services.checks import MAX_REPORTED
 
 REQUIRED: Final = ("panel", "layer", "side", "frame", "tool", "measured_at", *SITE_FIELDS)
@@ -152,7 +158,10 @@ def _batch(reading: _Reading) -> tuple[MeasurementBatch, np.ndarray]:
     for j, key in enumerate(reading.heads):
         text = key[column["layer"]].strip()
         try:
-            layer[j] = int(text)
+            value = int(text)
+            if abs(value) > LAYER_BOUND:
+                raise ValueError(text)
+            layer[j] = value
         except ValueError:
             usable[j] = False
             reading.error(reading.head_rows[j] + 2, "layer",

@@ -87,6 +87,7 @@ JSON_ONLY = {
     "no sites": (lambda: _set("sites", [])(), 422, "at least one site"),
     "missing field": (lambda: {k: v for k, v in _good().items() if k != "tool"}, 422, "tool"),
     "not JSON": (lambda: b"{panel: P0001", 422, "JSON"),
+    "layer beyond any integer": (lambda: _set("layer", 2**63)(), 422, "layer"),
 }
 
 

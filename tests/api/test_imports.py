@@ -85,6 +85,8 @@ BAD_ROWS = {
     "side C": ("P0001,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "side", "side"),
     "layer 0": ("P0001,0,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "layer", "1..12"),
     "layer 13": ("P0001,13,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "layer", "1..12"),
+    "layer beyond any integer": ("P0001,9223372036854775808,A,tool,EXP-T1,2026-11-02T06:00:00Z,"
+                                 "0,0,1,1\n", "layer", "not a whole layer number"),
     "over 1 mm": ("P0001,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1200,1\n", "dx_um", "1 mm"),
     "unknown panel": ("NOPE,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", "panel",
                       "not registered"),
