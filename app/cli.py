@@ -40,7 +40,9 @@ def db_upgrade(database: DatabaseOption = None) -> None:
 
 @key_cli.command("create")
 def key_create(
-    role: Annotated[str, typer.Option(help="tool, engineer, supervisor or admin")],
+    role: Annotated[
+        str, typer.Option(help="uploader (the metrology tool's key), engineer, supervisor or admin")
+    ],
     label: Annotated[str, typer.Option(help="Who or what holds the key")],
     database: DatabaseOption = None,
 ) -> None:

@@ -1,6 +1,6 @@
 """``stackledger analysis``: what drives FTB, as terminal tables, CSV and Parquet files.
 
-Each command takes the same filters as the API (product, tool, side, layer, lot, from, to),
+Each command takes the same filters as the API (product, exposure tool, side, layer, lot, from, to),
 prints its tables, and with ``--csv DIR`` / ``--parquet DIR`` writes every table of the report
 there as ``<command>-<table>.csv`` / ``.parquet``.
 """
@@ -24,13 +24,14 @@ from app.schemas.analysis import AnalysisFilter, DriftSettings
 from app.services import analysis_drift, analysis_ftb, analysis_lots, analysis_tools
 from app.views.analysis import rich_table, tables, to_csv, to_parquet
 
-analysis_cli = typer.Typer(help="What drives FTB: tools, layers, sides, lots, drift.",
+analysis_cli = typer.Typer(help="What drives FTB: exposure tools, layers, sides, lots, drift.",
                            no_args_is_help=True)
 out = wide_console()
 err = wide_console(stderr=True)
 
 Product = Annotated[str, typer.Option(help="Product code")]
-Tool = Annotated[str | None, typer.Option(help="Exposure tool")]
+Tool = Annotated[str | None, typer.Option("--exposure-tool",
+                                          help="Exposure tool (not the metrology tool)")]
 SideOpt = Annotated[str | None, typer.Option(help="A or B")]
 LayerOpt = Annotated[int | None, typer.Option(help="Layer number")]
 LotOpt = Annotated[str | None, typer.Option(help="Lot code")]
@@ -49,7 +50,7 @@ def _utc(value: datetime | None) -> datetime | None:
 def _filters(product: str, tool: str | None, side: str | None, layer: int | None,
              lot: str | None, start: datetime | None, end: datetime | None) -> AnalysisFilter:
     try:
-        return AnalysisFilter(product=product, tool=tool, side=side, layer=layer,  # type: ignore[arg-type]
+        return AnalysisFilter(product=product, exposure_tool=tool, side=side, layer=layer,  # type: ignore[arg-type]
                               lot=lot, start=_utc(start), end=_utc(end))
     except ValidationError as exc:
         err.print(f"[red]error[/red]: {exc.errors()[0]['loc'][0]}: {exc.errors()[0]['msg']}")
@@ -91,7 +92,8 @@ def fingerprints(product: Product, tool: Tool = None, side: SideOpt = None,
                  layer: LayerOpt = None, lot: LotOpt = None, start: From = None, end: To = None,
                  by_layer: bool = False, csv: CsvDir = None, parquet: ParquetDir = None,
                  rows: Rows = 40, database: DatabaseOption = None) -> None:
-    """Mean terms per tool and side (and layer) in the tool's own frame; the FTB what-if."""
+    """Mean terms per exposure tool and side (and layer) in the tool's own (facing-side) frame;
+    the FTB what-if."""
     f = _filters(product, tool, side, layer, lot, start, end)
     _run("fingerprints", lambda db: analysis_tools.tool_fingerprints(
         db=db, filters=f, by_layer=by_layer), csv, parquet, rows, database)
@@ -101,7 +103,7 @@ def fingerprints(product: Product, tool: Tool = None, side: SideOpt = None,
 def shares(product: Product, tool: Tool = None, side: SideOpt = None, layer: LayerOpt = None,
            lot: LotOpt = None, start: From = None, end: To = None, csv: CsvDir = None,
            parquet: ParquetDir = None, rows: Rows = 40, database: DatabaseOption = None) -> None:
-    """Shares of the mean FTB by layer and side, tool and lot; variance components."""
+    """Shares of the mean FTB by layer and side, exposure tool and lot; variance components."""
     f = _filters(product, tool, side, layer, lot, start, end)
     _run("shares", lambda db: analysis_ftb.ftb_shares(db=db, filters=f), csv, parquet, rows,
          database)
@@ -115,7 +117,7 @@ def drift(product: Product, tool: Tool = None, side: SideOpt = None, layer: Laye
           baseline_days: Annotated[float, typer.Option(help="Baseline window, days")] = 7.0,
           csv: CsvDir = None, parquet: ParquetDir = None, rows: Rows = 40,
           database: DatabaseOption = None) -> None:
-    """Drift alarms per tool, side and term, with the estimated change start."""
+    """Drift alarms per exposure tool, side and term, with the estimated change start."""
     f = _filters(product, tool, side, layer, lot, start, end)
     try:
         settings = DriftSettings(lam=lam, k=k, baseline_days=baseline_days)

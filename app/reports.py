@@ -10,9 +10,11 @@ from rich.table import Table
 from app.schemas.holds import CAUTION, HoldList
 from app.schemas.panels import PanelRead
 from app.schemas.records import AuditPage, RejectedUploadPage
+from app.views.text import reached
 
 RISK_STYLE = {"clear": "green", "watch": "yellow", "at_risk": "bold red",
               "over_limit": "bold white on red"}
+
 
 
 def _p(value: float | None) -> str:
@@ -22,31 +24,33 @@ def _p(value: float | None) -> str:
 def print_panel(console: Console, p: PanelRead) -> None:
     console.print(f"[bold]{p.serial}[/bold]  product {p.product}  lot {p.lot}  "
                   f"status {p.status}  risk [{RISK_STYLE[p.risk]}]{p.risk}[/]")
-    console.print(f"layers A {p.layers.A or '-'}  B {p.layers.B or '-'}"
+    console.print(f"layers reached {reached(p.layers_reached)}"
                   f"{'  missing A ' + str(p.missing_layers.A) if p.missing_layers.A else ''}"
                   f"{'  missing B ' + str(p.missing_layers.B) if p.missing_layers.B else ''}")
-    console.print(f"FTB worst {p.ftb.worst_um:.1f} um at {p.ftb.worst_at_mm} mm; "
-                  f"L2L worst {p.l2l_worst_um:.1f} um")
+    x, y = p.ftb_current_at_mm
+    console.print(f"current FTB {p.ftb_current_um:.1f} um at ({x:.1f}, {y:.1f}) mm; "
+                  f"worst L2L {p.l2l_worst_um:.1f} um")
     if p.forecast:
         f = p.forecast
-        console.print(f"forecast final worst {f.final_worst_um:.1f} um (95 % band "
-                      f"{f.band_um[0]:.1f}-{f.band_um[1]:.1f}), P(exceed) {f.p_exceed:.2f}")
+        lo, hi = f.ftb_final_band_um
+        console.print(f"final FTB forecast {f.ftb_final_forecast_um:.1f} um (95 % band "
+                      f"{lo:.1f}-{hi:.1f}); P(final over limit) {f.p_final_over_limit:.2f}")
     for r in p.reasons:
         console.print(f"  - {r}")
 
 
 def print_closest(console: Console, panels: list[tuple[PanelRead, float]], title: str) -> None:
     table = Table(title=title)
-    for col in ("panel", "lot", "product", "layers A/B", "FTB now um", "limit um",
-                "forecast um", "P(exceed)", "risk"):
+    for col in ("panel", "lot", "product", "layers reached", "current FTB um", "limit um",
+                "final FTB forecast um", "P(final over limit)", "risk"):
         table.add_column(col, justify="right" if "um" in col or "P(" in col else "left")
     for p, limit in panels:
         table.add_row(
             p.serial, p.lot, p.product,
-            f"{max(p.layers.A, default=0)}/{max(p.layers.B, default=0)}",
-            f"{p.ftb.worst_um:.1f}", f"{limit:.0f}",
-            f"{p.forecast.final_worst_um:.1f}" if p.forecast else "-",
-            _p(p.forecast.p_exceed if p.forecast else None),
+            reached(p.layers_reached),
+            f"{p.ftb_current_um:.1f}", f"{limit:.0f}",
+            f"{p.forecast.ftb_final_forecast_um:.1f}" if p.forecast else "-",
+            _p(p.forecast.p_final_over_limit if p.forecast else None),
             f"[{RISK_STYLE[p.risk]}]{p.risk}[/]",
         )
     console.print(table)
@@ -61,25 +65,26 @@ def print_holds(console: Console, hold_list: HoldList, *, closed: bool = False) 
     for closed holds, the disposition notes)."""
     word = "Closed" if closed else "Open"
     table = Table(title=f"{word} holds: {len(hold_list.holds)} (worst first, then oldest)")
-    columns = ["#", "hold id", "risk", "panel", "lot", "A/B", "FTB now um"]
+    columns = ["#", "hold id", "risk", "panel", "lot", "layers reached", "current FTB um"]
     # A closed hold shows its disposition in place of the forecast (which it no longer needs).
     columns += (["held since (UTC)", "held by", "disposition", "by", "when (UTC)"] if closed
-                else ["forecast um (95 %)", "P(exceed)", "held since (UTC)", "held by"])
+                else ["final FTB forecast um (95 % band)", "P(final over limit)",
+                      "held since (UTC)", "held by"])
     for col in columns:
         table.add_column(col, no_wrap=True)
     for i, h in enumerate(hold_list.holds, 1):
-        band = h.forecast_band_um
-        forecast = "-" if h.forecast_final_um is None else (
-            f"{h.forecast_final_um:.1f}" + (f" ({band[0]:.0f}-{band[1]:.0f})" if band else ""))
+        band = h.ftb_final_band_um
+        forecast = "-" if h.ftb_final_forecast_um is None else (
+            f"{h.ftb_final_forecast_um:.1f}" + (f" ({band[0]:.0f}-{band[1]:.0f})" if band else ""))
         row = [
             str(i), h.id[:SHORT_ID], f"[{RISK_STYLE.get(h.risk, '')}]{h.risk}[/]", h.panel,
-            h.lot, f"{h.layers_reached.get('A', 0)}/{h.layers_reached.get('B', 0)}",
-            f"{h.ftb_now_um:.1f}",
+            h.lot, reached(h.layers_reached),
+            f"{h.ftb_current_um:.1f}",
         ]
         held = [h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by]
         row += [*held, h.disposition or "-", h.disposed_by or "-",
                 h.disposed_at.strftime("%Y-%m-%d %H:%M") if h.disposed_at else "-"] if closed \
-            else [forecast, _p(h.p_exceed), *held]
+            else [forecast, _p(h.p_final_over_limit), *held]
         table.add_row(*row)
     console.print(table)
     for i, h in enumerate(hold_list.holds, 1):

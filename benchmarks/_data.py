@@ -31,7 +31,7 @@ from app.services import panels, products
 from app.store.migrate import upgrade
 
 PG_ADMIN_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/postgres"
-HEADER = ("panel", "layer", "side", "frame", "tool", "measured_at",
+HEADER = ("panel", "layer", "side", "frame", "exposure_tool", "measured_at",
           "x_mm", "y_mm", "dx_um", "dy_um")
 LAYERS = 12
 SIDES = ("A", "B")
@@ -177,8 +177,8 @@ def measurements(names: list[str], *, layers: int = LAYERS, seed: int = 2026,
                 dy = dy + rng.normal(0.0, 1.5, n_sites)
                 x, y, dx, dy = mirror_sites(px, py, dx, dy, side=side, flip_axis="y")
                 yield {
-                    "panel": serial, "layer": k, "side": side, "frame": "tool",
-                    "tool": TOOLS[(p // 25 + k) % len(TOOLS)],
+                    "panel": serial, "layer": k, "side": side, "frame": "facing_side",
+                    "exposure_tool": TOOLS[(p // 25 + k) % len(TOOLS)],
                     "measured_at": T0 + timedelta(days=2 * k, minutes=1.5 * p,
                                                   hours=8 if side == "B" else 0),
                     "x": x, "y": y, "dx": np.round(dx, 4), "dy": np.round(dy, 4),
@@ -198,7 +198,7 @@ def write_measurements(path: Path, ms: list[dict[str, Any]]) -> int:
     rep = lambda key: np.repeat(np.array([m[key] for m in ms], dtype=object), counts)  # noqa: E731
     frame = pd.DataFrame({
         "panel": rep("panel"), "layer": np.repeat([m["layer"] for m in ms], counts),
-        "side": rep("side"), "frame": rep("frame"), "tool": rep("tool"),
+        "side": rep("side"), "frame": rep("frame"), "exposure_tool": rep("exposure_tool"),
         "measured_at": np.repeat([m["measured_at"].isoformat() for m in ms], counts),
         "x_mm": np.concatenate([m["x"] for m in ms]),
         "y_mm": np.concatenate([m["y"] for m in ms]),
@@ -213,7 +213,7 @@ def post_body(m: dict[str, Any]) -> dict[str, Any]:
     """A measurement as the JSON body of POST /api/v1/measurements."""
     return {
         "panel": m["panel"], "layer": m["layer"], "side": m["side"], "frame": m["frame"],
-        "tool": m["tool"], "measured_at": m["measured_at"].isoformat(),
+        "exposure_tool": m["exposure_tool"], "measured_at": m["measured_at"].isoformat(),
         "sites": [{"x_mm": float(a), "y_mm": float(b), "dx_um": float(c), "dy_um": float(d)}
                   for a, b, c, d in zip(m["x"], m["y"], m["dx"], m["dy"], strict=True)],
     }

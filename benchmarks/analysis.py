@@ -96,7 +96,7 @@ def _fill(db: Database, panels: int, rate: float, seed: int, product_id: int) ->
         else:
             id_values, stamp_values = ids, stamps
         measurement_rows = (
-            (s, i, int(layer), "B" if b else "A", "tool", TOOLS[t], when, received, 49, None,
+            (s, i, int(layer), "B" if b else "A", "facing_side", TOOLS[t], when, received, 49, None,
              "import", "bench")
             for s, i, layer, b, t, when in zip(serials, id_values, r["layer"], r["side_b"],
                                                r["tool"], stamp_values, strict=True))

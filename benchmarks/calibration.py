@@ -68,11 +68,11 @@ class Track:
 
 def _csv(line: Line, work: list[tuple[Lot, int]], step: int) -> bytes:
     out = io.StringIO()
-    out.write("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n")
+    out.write("panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n")
     for lot, layer in work:
         for serial, side, tool, rows in line.measurements(lot, layer):
             at = (T0 + timedelta(hours=4 * step, minutes=30 if side == "B" else 0)).isoformat()
-            head = f"{serial},{layer},{side},tool,{tool},{at},"
+            head = f"{serial},{layer},{side},facing_side,{tool},{at},"
             out.writelines(head + f"{x:.3f},{y:.3f},{dx:.4f},{dy:.4f}\n" for x, y, dx, dy in rows)
     return out.getvalue().encode()
 

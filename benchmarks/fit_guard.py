@@ -149,7 +149,7 @@ def post_share(posts: int) -> None:
         db = _data.migrated(url)
         names = _data.serials(max(1, -(-posts // 10)) + 1, "VP")
         _data.register(db, names)
-        key, _ = keys.create(db=db, role="tool", label="bench tool")
+        key, _ = keys.create(db=db, role="uploader", label="bench tool")
         headers = {"Authorization": f"Bearer {key}"}
         client = TestClient(create_app(db), raise_server_exceptions=True)
         bodies = [_data.post_body(m) for m in sorted(

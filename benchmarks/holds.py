@@ -97,7 +97,7 @@ def forecast_share(db: Database, tmp: Path, args: argparse.Namespace) -> dict[st
                            owner=0)
     setup_s = time.perf_counter() - t
 
-    tool_key, _ = keys.create(db=db, role="tool", label="bench tool")
+    tool_key, _ = keys.create(db=db, role="uploader", label="bench tool")
     headers = {"Authorization": f"Bearer {tool_key}"}
     client = client_for(db)
 

@@ -40,7 +40,7 @@ def _grow(db: Database, serial: str, rows: int) -> None:
         with db.transaction() as session:
             session.execute(insert(Measurement), [
                 {"panel": serial, "id": uuid.uuid4(), "layer": 1 + i % 12, "side": "AB"[i % 2],
-                 "frame": "tool", "tool": "EXP-1", "measured_at": _data.T0,
+                 "frame": "facing_side", "exposure_tool": "EXP-1", "measured_at": _data.T0,
                  "received_at": _data.T0, "n_sites": 25, "superseded_by": None,
                  "source": "import", "key_label": "bench"} for i in range(n)])
     if db.engine.dialect.name == "postgresql":

@@ -96,12 +96,28 @@ def workload(args: argparse.Namespace) -> dict[str, Any]:
                  if step < len(ms) for m in [ms[step]]]
         posts.append([json.dumps(_data.post_body(m)).encode() for m in order])
     return {
-        "names": history + wip + warm, "history": history_ms + before, "posts": posts,
+        "names": history + wip + warm,
+        "history": history_ms + before,
+        "posts": posts,
         "warm": [json.dumps(_data.post_body(m)).encode() for m in warm_ms],
-        "rows": [[(m["panel"], m["layer"], m["side"], m["frame"], m["tool"], m["measured_at"],
-                   float(x), float(y), float(dx), float(dy))
-                  for x, y, dx, dy in zip(m["x"], m["y"], m["dx"], m["dy"], strict=True)]
-                 for m in later],
+        "rows": [
+            [
+                (
+                    m["panel"],
+                    m["layer"],
+                    m["side"],
+                    m["frame"],
+                    m["exposure_tool"],
+                    m["measured_at"],
+                    float(x),
+                    float(y),
+                    float(dx),
+                    float(dy),
+                )
+                for x, y, dx, dy in zip(m["x"], m["y"], m["dx"], m["dy"], strict=True)
+            ]
+            for m in later
+        ],
     }
 
 
@@ -121,7 +137,7 @@ def store(backend: str, tmp: Path, name: str, work: dict[str, Any]) -> Iterator[
             with path.open("rb") as f:
                 imports.import_csv(db=db, stream=f, name=path.name, principal_label="bench",
                                    owner=0)
-            tool_key, _ = keys.create(db=db, role="tool", label="bench tool")
+            tool_key, _ = keys.create(db=db, role="uploader", label="bench tool")
         finally:
             db.close()
         yield url, tool_key

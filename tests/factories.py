@@ -57,11 +57,11 @@ def sites(terms: Any, *, n: int = 5, noise: float = 0.0, seed: int = 0) -> list[
 
 
 def measurement(panel: str, layer: int, side: str, terms: Any = (0,) * 8, *,
-                frame: str = "tool", tool: str = "EXP-T1", minutes: int = 0,
+                frame: str = "facing_side", tool: str = "EXP-T1", minutes: int = 0,
                 **kw: Any) -> dict[str, Any]:
     t = list(terms) + [0.0] * (8 - len(list(terms)))
     return {
-        "panel": panel, "layer": layer, "side": side, "frame": frame, "tool": tool,
+        "panel": panel, "layer": layer, "side": side, "frame": frame, "exposure_tool": tool,
         "measured_at": (T0 + timedelta(minutes=minutes or layer * 60 + (30 if side == "B" else 0)))
         .isoformat(),
         "sites": sites(t, **kw),

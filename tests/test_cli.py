@@ -9,7 +9,7 @@ from app.cli import cli
 from app.config import get_settings
 from tests.factories import make_panel, make_product
 
-HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+HEADER = "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
 
 
 @pytest.fixture
@@ -33,7 +33,7 @@ def test_key_create_prints_the_key_alone(env):
 
 
 def test_import_panel_and_holds(env, tmp_path):
-    rows = [f"P1,1,A,tool,EXP-T1,2026-11-02T06:00:00Z,{x},{y},20,0\n"
+    rows = [f"P1,1,A,facing_side,EXP-T1,2026-11-02T06:00:00Z,{x},{y},20,0\n"
             for x in (-200, 0, 200) for y in (-200, 0, 200)]
     path = tmp_path / "m.csv"
     path.write_text(HEADER + "".join(rows), encoding="utf-8")
@@ -41,12 +41,14 @@ def test_import_panel_and_holds(env, tmp_path):
     assert r.exit_code == 0, r.output
     assert "imported 9 rows: 1 measurements of 1 panels" in r.stderr
     r = CliRunner().invoke(cli, ["panel", "P1"])
-    assert r.exit_code == 0 and "over_limit" in r.stdout and "FTB worst 20.0 um" in r.stdout
+    assert r.exit_code == 0 and "over_limit" in r.stdout and "current FTB 20.0 um" in r.stdout
     r = CliRunner().invoke(cli, ["holds", "--csv"])
     assert r.exit_code == 0
     lines = r.stdout.splitlines()
-    assert lines[0].startswith('"severity","risk","panel"') and "quality procedures" in r.stderr
-    assert lines[1].split(",")[2] == '"P1"'
+    assert (
+        lines[0].startswith('"severity","risk","rule","panel"') and "quality procedures" in r.stderr
+    )
+    assert lines[1].split(",")[3] == '"P1"'
     r = CliRunner().invoke(cli, ["holds"])
     assert "P1" in r.stdout and "qualified engineers" in r.stdout
 
@@ -55,7 +57,8 @@ def test_bad_import_is_refused_and_kept(env, tmp_path):
     from app.services import rejections
 
     path = tmp_path / "bad.csv"
-    path.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    path.write_text(HEADER + "P1,1,C,facing_side,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n",
+                    encoding="utf-8")
     r = CliRunner().invoke(cli, ["import", str(path)])
     assert r.exit_code == 2
     assert "line 2, column side" in r.stderr
@@ -64,11 +67,11 @@ def test_bad_import_is_refused_and_kept(env, tmp_path):
 
 
 def test_long_key_label_is_refused_in_one_line(env):
-    r = CliRunner().invoke(cli, ["key", "create", "--role", "tool", "--label", "x" * 101])
+    r = CliRunner().invoke(cli, ["key", "create", "--role", "uploader", "--label", "x" * 101])
     assert r.exit_code == 2
     assert "label is 101 characters long; at most 100 are kept" in r.stderr
     assert "Traceback" not in r.output
-    ok = CliRunner().invoke(cli, ["key", "create", "--role", "tool", "--label", "x" * 100])
+    ok = CliRunner().invoke(cli, ["key", "create", "--role", "uploader", "--label", "x" * 100])
     assert ok.exit_code == 0, ok.output
 
 
@@ -76,7 +79,8 @@ def test_refused_import_of_a_long_file_name_is_recorded(env, tmp_path):
     from app.services import rejections
 
     path = tmp_path / ("m" * 206 + ".csv")  # 210 characters: over the 200 kept of an endpoint
-    path.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    path.write_text(HEADER + "P1,1,C,facing_side,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n",
+                    encoding="utf-8")
     r = CliRunner().invoke(cli, ["import", str(path)])
     assert r.exit_code == 2 and "Traceback" not in r.output
     kept = rejections.latest(db=env)
@@ -88,7 +92,7 @@ def test_demo_prints_the_pages_address_and_a_key_per_role(tmp_path):
                                  "--port", "8123"])
     assert r.exit_code == 0, r.output
     assert "http://127.0.0.1:8123/sign-in" in r.output
-    for role in ("tool", "engineer", "supervisor", "admin"):
+    for role in ("uploader", "engineer", "supervisor", "admin"):
         assert any(line.split()[:1] == [role] and "sl_" in line
                    for line in r.output.splitlines()), role
 
@@ -127,7 +131,7 @@ def test_commands_name_the_database_and_never_create_one_by_accident(tmp_path, m
     monkeypatch.chdir(tmp_path)
     get_settings.cache_clear()
     for args in (["holds"], ["panel", "P1"], ["import", __file__], ["key", "create", "--role",
-                                                                    "tool", "--label", "x"]):
+                                                                    "uploader", "--label", "x"]):
         r = CliRunner().invoke(cli, args)
         assert r.exit_code == 2, (args, r.output)
         assert "no database at" in r.stderr and "stackledger db upgrade" in r.stderr
@@ -147,7 +151,7 @@ def test_commands_name_the_database_and_never_create_one_by_accident(tmp_path, m
 
 
 def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
-    rows = [f"P1,{layer},A,tool,EXP-T1,2026-11-02T0{layer}:00:00Z,{x},{y},20,0\n"
+    rows = [f"P1,{layer},A,facing_side,EXP-T1,2026-11-02T0{layer}:00:00Z,{x},{y},20,0\n"
             for layer in (1, 2) for x in (-200, 0, 200) for y in (-200, 0, 200)]
     path = tmp_path / "m.csv"
     path.write_text(HEADER + "".join(rows), encoding="utf-8")
@@ -163,7 +167,7 @@ def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
     assert "layer 2 side A set aside" in r.stdout
     r = CliRunner().invoke(cli, ["panel", "P1"])
     # Layer 2 A (+20 um) set aside: the FTB is layer 1's 20 um alone.
-    assert "layers A [1]" in r.stdout and "FTB worst 20.0 um" in r.stdout
+    assert "layers reached A 1 / B 0" in r.stdout and "current FTB 20.0 um" in r.stdout
 
 
 def test_audit_trail_and_refused_uploads_from_the_terminal(env, tmp_path):
@@ -171,7 +175,8 @@ def test_audit_trail_and_refused_uploads_from_the_terminal(env, tmp_path):
                                  "--by", "Shift lead B"])
     assert r.exit_code == 0, r.output
     bad = tmp_path / "bad.csv"
-    bad.write_text(HEADER + "P1,1,C,tool,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n", encoding="utf-8")
+    bad.write_text(HEADER + "P1,1,C,facing_side,EXP-T1,2026-11-02T06:00:00Z,0,0,1,1\n",
+                   encoding="utf-8")
     assert CliRunner().invoke(cli, ["import", str(bad)]).exit_code == 2
     trail = CliRunner().invoke(cli, ["audit", "--panel", "P1"])
     assert trail.exit_code == 0, trail.output

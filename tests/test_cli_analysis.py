@@ -29,7 +29,7 @@ def test_commands_print_tables_and_write_csv_and_parquet(env, tmp_path):
     table = pq.read_table(tmp_path / "fingerprints-fingerprints.parquet").to_pylist()
     csv_lines = (tmp_path / "fingerprints-fingerprints.csv").read_text().splitlines()
     assert len(csv_lines) == len(table) + 2  # caption and header
-    assert {row["tool"] for row in table} == {"T1", "T2", "T3"}
+    assert {row["exposure_tool"] for row in table} == {"T1", "T2", "T3"}
     for command in (["lots"], ["trend", "--period", "week"], ["drift"], ["shares"]):
         r = CliRunner().invoke(cli, ["analysis", *command, "--product", "FP"])
         assert r.exit_code == 0, (command, r.output)

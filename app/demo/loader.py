@@ -26,7 +26,7 @@ from app.store.migrate import upgrade
 from app.store.tables import Product
 
 SAMPLE_DATA = Path(__file__).resolve().parent / "sample_data"
-DEMO_ROLES = ("tool", "engineer", "supervisor", "admin")
+DEMO_ROLES = ("uploader", "engineer", "supervisor", "admin")
 
 
 def _days(path: Path, folder: Path) -> list[Path]:
@@ -88,12 +88,14 @@ REFRESH: Final = "STACKLEDGER_HISTORY_REFRESH_S"
 #: How the demo's first table is ordered, said under it.
 CLOSEST_ORDER: Final = (
     "Order: risk level first (over_limit, at_risk, watch, clear), so no panel already over a "
-    "limit is left out; within a level, the larger of FTB now / FTB limit and P(exceed).")
+    "limit is left out; within a level, the larger of current FTB / FTB limit and "
+    "P(final over limit)."
+)
 
 
 def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]:
     """The ``n`` panels nearest their limits, in the order of ``CLOSEST_ORDER``: a panel over
-    its L2L or resistance limit can have a small FTB and P(exceed), yet it comes first."""
+    its L2L or resistance limit can have a small FTB and P(final over limit), yet it comes first."""
     with db.transaction() as session:
         limits = {p.code: p.ftb_limit_um for p in session.scalars(select(Product))}
     page = panels.list_panels(db=db, limit=500)
@@ -103,9 +105,9 @@ def closest_to_limit(db: Database, n: int = 15) -> list[tuple[PanelRead, float]]
         items += page.items
 
     def closeness(p: PanelRead) -> float:
-        """The larger of the share of the limit used now and the forecast P(exceed)."""
-        ratio = p.ftb.worst_um / limits[p.product]
-        return max(ratio, p.forecast.p_exceed if p.forecast else 0.0)
+        """The larger of the share of the limit used now and P(final over limit)."""
+        ratio = p.ftb_current_um / limits[p.product]
+        return max(ratio, p.forecast.p_final_over_limit if p.forecast else 0.0)
 
     items.sort(key=lambda p: (severity(p.risk), closeness(p)), reverse=True)
     return [(p, limits[p.product]) for p in items[:n]]

@@ -15,8 +15,8 @@ or one behind). Three exposure tools run the lots. The story the hold list shoul
   registration jumped beyond the L2L limit.
 
 Each layer's overlay is a term vector in the panel frame (``app.overlay.model`` order), evaluated
-at the sites with per-site noise, then posted in the lot's upload frame: side A in "tool"
-(= panel), side B in side B's tool frame via ``frames.mirror_sites`` (lot L26-4804 posts side B
+at the sites with per-site noise, then posted in the lot's upload frame: side A in "facing_side"
+(= panel), side B facing side B via ``frames.mirror_sites`` (lot L26-4804 posts side B
 in "panel" frame to exercise that column). Pure: numpy and the standard library only.
 """
 
@@ -154,7 +154,7 @@ class LotPlan:
     lead_layer: int
     lead_exposed: datetime  # side A of the lead layer; layer j ran (lead - j) pairs earlier
     home_tool: str
-    side_b_frame: str = "tool"
+    side_b_frame: str = "facing_side"
 
 
 def _fab_time(day: int, hour: int) -> datetime:
@@ -172,7 +172,7 @@ LOTS: Final = (
     LotPlan("L26-4808", "C75", 38, 3, _fab_time(30, 9), "EXP-3"),
 )
 MEASUREMENT_COLUMNS: Final = (
-    *("panel", "layer", "side", "frame", "tool", "measured_at"),
+    *("panel", "layer", "side", "frame", "exposure_tool", "measured_at"),
     *("x_mm", "y_mm", "dx_um", "dy_um"),
 )
 
@@ -391,9 +391,9 @@ def _simulate(rng: np.random.Generator, panels: list[_Panel]) -> list[_Measureme
                 dx, dy = evaluate(terms, x, y)
                 dx = dx + rng.normal(0.0, SITE_NOISE_SIGMA_UM, dx.shape)
                 dy = dy + rng.normal(0.0, SITE_NOISE_SIGMA_UM, dy.shape)
-                frame = panel.lot.side_b_frame if side == "B" else "tool"
+                frame = panel.lot.side_b_frame if side == "B" else "facing_side"
                 sites = (x, y, dx, dy)
-                if frame == "tool":
+                if frame == "facing_side":
                     sites = mirror_sites(x, y, dx, dy, side=side, flip_axis=flip)
                 measurements.append(
                     _Measurement(when, panel.serial, layer, side, frame, tool, sites)
@@ -443,7 +443,7 @@ def _readme(
 Invented data for stackledger's demo, written by `app/demo/simulator.py` (seed {seed}). Do not
 edit by hand; regenerate with `python -m app.demo.simulator` (same seed, same bytes;
 `tests/demo/test_simulator.py` fails when these files go stale). The fab, its products, lots,
-serials and tools are fiction.
+serials and exposure tools are fiction.
 
 ## Files
 
@@ -457,9 +457,10 @@ serials and tools are fiction.
 - `measurements.csv`: {summary.rows} rows (one per site), {summary.measurements} measurements,
   each a contiguous block of one panel/layer/side, sorted by `measured_at`, from
   {span[0]} to {span[1]}.
-  Side A in frame `tool` (= panel); side B in side B's tool frame (`tool`), except lot
-  L26-4804, whose side B is posted in frame `panel`. Side A has reached layer 2..12, side B
-  the same layer or one behind; {summary.complete_panels} panels are complete (12/12).
+  Side A in frame `facing_side` (= panel); side B in frame `facing_side` (as the tools
+  see it), except lot L26-4804, whose side B is posted in frame `panel`. Side A has
+  reached layer 2..12, side B the same layer or one behind; {summary.complete_panels} panels
+  are complete (12/12).
 
 ## The story
 

@@ -47,6 +47,8 @@ BoolArray = NDArray[np.bool_]
 
 #: Model names from the fullest to the fallback of last resort, and basis columns per axis.
 MODELS: Final = ("trapezoid", "linear", "translation")
+#: How notes name each model: by its terms (docs/glossary.md, fit models).
+SAID: Final = {"trapezoid": "8 terms", "linear": "6 terms", "translation": "2 terms"}
 N_BASIS: Final = {"trapezoid": 4, "linear": 3, "translation": 1}
 #: Rank rule: a basis column is taken as undetermined when, after the earlier columns are
 #: removed, its norm is below this fraction of sqrt(n) (the norm of the ones column, the largest
@@ -241,7 +243,7 @@ def choose(
     for i in range(MODELS.index(requested), len(MODELS) - 1):
         name = MODELS[i]
         if n < N_BASIS[name]:
-            why = f"{name} needs at least {N_BASIS[name]} sites, got {n}"
+            why = f"{SAID[name]} need at least {N_BASIS[name]} sites, got {n}"
             ok = np.zeros(g, dtype=bool)
         else:
             why = "sites are collinear" if name == "linear" else "sites do not fix the x*y terms"
@@ -265,13 +267,14 @@ def choose(
             reasons.setdefault(j, []).append(why)
         if leverage is not None:
             for j in np.flatnonzero(thin).tolist():
-                reasons.setdefault(j, []).append(cover_reason(name, float(leverage[name][j])))
+                reasons.setdefault(j, []).append(cover_reason(SAID[name],
+                                                             float(leverage[name][j])))
         undecided &= ~(ok & covered)
     notes: list[str | None] = [None] * g
     no_dof = [n - N_BASIS[m] <= 0 for m in MODELS]
     for j in set(reasons) | set(np.flatnonzero(np.array(no_dof)[choice]).tolist()):
         model = MODELS[int(choice[j])]
-        parts = [*reasons.get(j, []), f"fitted {model}"] if j in reasons else []
+        parts = [*reasons.get(j, []), f"fitted {SAID[model]}"] if j in reasons else []
         if no_dof[int(choice[j])]:
             parts.append(NO_DOF_NOTE)
         notes[j] = "; ".join(parts)

@@ -7,19 +7,19 @@ fires, so that an engineer sees all causes (a side's drift and an L2L over limit
 =======================  ==========  =====================================================
 rule                     level       fires when
 =======================  ==========  =====================================================
-ftb_over_limit           over_limit  current worst FTB > FTB limit
+current_ftb_over_limit           over_limit  current worst FTB > FTB limit
 via_off_pad              over_limit  a layer's fitted L2L offset passes its vias' capture
                                      margin by more than 2 fit standard errors (products
                                      with via settings)
 l2l_over_limit           over_limit  a layer's worst L2L passes the L2L limit by more than 2
                                      fit standard errors (products without via settings)
-p_exceed_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk, or the panel
+forecast_at_risk         at_risk     forecast P(final FTB > limit) >= p_at_risk, or the panel
                                      was at_risk (or over) before and P >= p_at_risk_leave
 via_miss_at_risk         at_risk     P(a via misses part of its pad) >= p_at_risk somewhere
-p_exceed_watch           watch       forecast P(final FTB > limit) >= p_watch, or the panel
+forecast_watch           watch       forecast P(final FTB > limit) >= p_watch, or the panel
                                      was watched (or worse) before and P >= p_watch_leave
 via_miss_watch           watch       P(a via misses part of its pad) >= p_watch somewhere
-ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
+current_ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
 clear                    clear       none of the above
 =======================  ==========  =====================================================
 
@@ -60,14 +60,14 @@ from app.overlay.model import FloatArray
 RISK_LEVELS: Final = ("clear", "watch", "at_risk", "over_limit")
 #: (rule, level), most severe first; the order in which reasons are listed.
 RULES: Final = (
-    ("ftb_over_limit", "over_limit"),
+    ("current_ftb_over_limit", "over_limit"),
     ("via_off_pad", "over_limit"),
     ("l2l_over_limit", "over_limit"),
-    ("p_exceed_at_risk", "at_risk"),
+    ("forecast_at_risk", "at_risk"),
     ("via_miss_at_risk", "at_risk"),
-    ("p_exceed_watch", "watch"),
+    ("forecast_watch", "watch"),
     ("via_miss_watch", "watch"),
-    ("ftb_near_limit", "watch"),
+    ("current_ftb_near_limit", "watch"),
     ("clear", "clear"),
 )
 #: A layer is over a limit when its offset passes it by more than this many of the fit's own
@@ -101,7 +101,7 @@ class RiskThresholds:
     ftb_limit_um, l2l_limit_um : float
         FTB and L2L limits (vector length), um.
     p_watch, p_at_risk : float
-        P(exceed) from which a panel is watched or at risk; 0 < p_watch <= p_at_risk <= 1.
+        P(final over limit) from which a panel is watched or at risk; 0 < p_watch <= p_at_risk <= 1.
     watch_fraction : float
         Current FTB from this share of the limit is watched (0.70, common practice).
     p_watch_leave, p_at_risk_leave : float
@@ -186,38 +186,49 @@ def _um(value: float) -> str:
     return f"{value:.0f}" if abs(value) >= 10.0 else f"{value:.1f}"
 
 
+def _pct(p: float) -> str:
+    return f"{p:.0%}".replace("%", " %")
+
+
+def _chance(p: float) -> str:
+    """A probability as the line says it, never 0 % or 100 % (it is a sampled estimate)."""
+    if p < 0.01:
+        return "less than a 1 % chance"
+    if p > 0.99:
+        return "more than a 99 % chance"
+    return f"a {_pct(p)} chance"
+
+
 def _drift_reason(side: str, trend: SideTrend) -> str:
     vx, vy = trend.observed_per_layer_um
     n_obs = len(trend.observed_layers)
     size = math.hypot(vx, vy)
     if size < _NO_DRIFT_UM:
-        head = f"Side {side} shows no net drift ({size:.1f} um/layer) over {_layers(n_obs)}"
+        head = f"Side {side} has not moved one way over its {_layers(n_obs)} so far"
     else:
         head = (
-            f"Side {side} drifts {size:.1f} um/layer toward {_direction(vx, vy)} "
-            f"(panel frame) over {_layers(n_obs)}"
+            f"Side {side} has moved {size:.1f} um a layer toward {_direction(vx, vy)} "
+            f"(panel frame) over its {_layers(n_obs)} so far"
         )
     n_rem = len(trend.remaining_layers)
     if n_rem == 0:
-        return f"{head}; no layers remain on this side."
+        return f"{head}; it has no layers to come."
     px, py = trend.per_layer_um
     expect = math.hypot(px, py)
     toward = f" toward {_direction(px, py)}" if expect >= _NO_DRIFT_UM else ""
     return (
-        f"{head}; the forecast expects {expect:.1f} um/layer{toward} from each of its "
-        f"{n_rem} remaining layer{'s' if n_rem > 1 else ''} (it keeps {trend.weight:.0%} of "
-        f"the side's own deviation from the expected layer)."
+        f"{head}; each of its {_layers(n_rem)} to come is expected to add "
+        f"{expect:.1f} um{toward}."
     )
 
 
 def _remaining_phrase(forecast: Forecast) -> str:
     a, b = forecast.trend_a, forecast.trend_b
     n_a, n_b = len(a.remaining_layers), len(b.remaining_layers)
-    verb = "remains" if n_a == 1 else "remain"  # the verb agrees with side A's count, said first
     if n_a == n_b:
-        text = f"{_layers(n_a)} {verb} on each side"
+        text = f"With {_layers(n_a)} to come on each side"
     else:
-        text = f"{_layers(n_a)} {verb} on side A and {n_b} on side B"
+        text = f"With {_layers(n_a)} to come on side A and {n_b} on side B"
     missing = []
     for side, trend in (("A", a), ("B", b)):
         top = max(trend.observed_layers, default=0)
@@ -236,8 +247,8 @@ def _forecast_reasons(
     limit = thresholds.ftb_limit_um
     if forecast.complete:
         return [
-            f"The stack is complete: final FTB {forecast.final_worst_um:.1f} um against a limit "
-            f"of {limit:g} um; P(exceed) = {forecast.p_exceed:.2f}."
+            f"Every layer is on: the final FTB is {forecast.final_worst_um:.1f} um against the "
+            f"{limit:g} um limit."
         ]
     reasons = [
         _drift_reason(side, trend)
@@ -246,9 +257,10 @@ def _forecast_reasons(
     ]
     lo, hi = forecast.band_um
     reasons.append(
-        f"{_remaining_phrase(forecast)}; final FTB forecast {_um(forecast.final_worst_um)} um "
-        f"(95% band {_um(lo)}-{_um(hi)} um) against a limit of {limit:g} um; "
-        f"P(exceed) = {forecast.p_exceed:.2f}, {threshold_phrase}."
+        f"{_remaining_phrase(forecast)}, the final FTB is expected near "
+        f"{_um(forecast.final_worst_um)} um (95 % band {_um(lo)}-{_um(hi)} um) against the "
+        f"{limit:g} um limit: {_chance(forecast.p_exceed)} of ending over it, "
+        f"{threshold_phrase}."
     )
     return reasons
 
@@ -262,10 +274,10 @@ def _l2l_limit_reasons(
         if not math.isfinite(value):
             raise OverlayInputError(f"side {side} layer {layer}: L2L worst is not finite")
         if value - SE_FACTOR * se > limit:
-            known = f" (fit standard error {se:.1f} um)" if se > 0.0 else ""
+            known = f" (the fit is good to {se:.1f} um there)" if se > 0.0 else ""
             out.append(
-                f"Side {side} layer {layer}: L2L worst {value:.1f} um{_at(at)} exceeds the "
-                f"{limit:g} um limit by {value - limit:.1f} um{known}."
+                f"Side {side} layer {layer} sits {value:.1f} um off the layer beneath{_at(at)}: "
+                f"{value - limit:.1f} um over the {limit:g} um L2L limit{known}."
             )
     return out
 
@@ -278,8 +290,8 @@ def _landing(c: InterfaceCapture) -> str:
         return "; the via bottom is off its pad entirely (an open)"
     share = c.overlap_fraction or 0.0
     return (
-        f"; {share:.0%} of the via bottom stays on its pad, about {ratio:.1f} x the contact "
-        "resistance (first-order: via area over overlap)"
+        f"; {share:.0%} of the via bottom stays on its pad, so its contact resistance is "
+        f"about {ratio:.1f} x the usual (via area over overlap, first-order)"
     )
 
 
@@ -295,9 +307,9 @@ def _capture_reasons(
         if c.overhang_um - SE_FACTOR * c.model_se_um > 0.0:
             fired.setdefault("via_off_pad", []).append(
                 f"Via on layer {c.layer} {where} can miss its pad by {c.overhang_um:.1f} um"
-                f"{_at(c.worst_at_mm)}: L2L offset {c.worst_um:.1f} um against a capture "
-                f"margin of {c.margin_um:.1f} um (fit standard error {c.model_se_um:.1f} um)"
-                f"{_landing(c)}."
+                f"{_at(c.worst_at_mm)}: the layer sits {c.worst_um:.1f} um off the layer "
+                f"beneath, against a capture margin of {c.margin_um:.1f} um (the fit is good "
+                f"to {c.model_se_um:.1f} um there){_landing(c)}."
             )
             continue
         for rule, level in (
@@ -306,10 +318,10 @@ def _capture_reasons(
         ):
             if c.p_miss >= level:
                 fired.setdefault(rule, []).append(
-                    f"Vias on layer {c.layer} {where} miss part of their pad with probability "
-                    f"{c.p_miss:.2f}{_at(c.p_miss_at_mm)} (threshold {level:.2f}): L2L offset "
-                    f"up to {c.worst_um:.1f} um against a capture margin of "
-                    f"{c.margin_um:.1f} um."
+                    f"Vias on layer {c.layer} {where} have {_chance(c.p_miss)} of "
+                    f"missing part of their pad{_at(c.p_miss_at_mm)} (threshold "
+                    f"{_pct(level)}): the layer sits up to {c.worst_um:.1f} um off the layer "
+                    f"beneath, against a capture margin of {c.margin_um:.1f} um."
                 )
                 break
     return fired
@@ -367,9 +379,9 @@ def assess(
     where = _at(ftb_worst_at_mm)
 
     if ftb > limit:
-        fired["ftb_over_limit"] = [
-            f"Current FTB {ftb:.1f} um{where} exceeds the {limit:g} um limit by "
-            f"{ftb - limit:.1f} um."
+        fired["current_ftb_over_limit"] = [
+            f"Current FTB {ftb:.1f} um{where} is {ftb - limit:.1f} um over the {limit:g} um "
+            "limit already."
         ]
     rows: list[tuple[str, int, float, tuple[float, float] | None, float]]
     if interfaces is None:
@@ -393,31 +405,32 @@ def assess(
     if forecast is not None:
         p = forecast.p_exceed
         if p >= thresholds.p_at_risk:
-            fired["p_exceed_at_risk"] = _forecast_reasons(
+            fired["forecast_at_risk"] = _forecast_reasons(
                 forecast,
                 thresholds,
-                f"at or above the {thresholds.p_at_risk:.2f} at-risk threshold",
+                f"at or above the {_pct(thresholds.p_at_risk)} at-risk threshold",
             )
         elif before >= severity("at_risk") and p >= thresholds.p_at_risk_leave:
-            fired["p_exceed_at_risk"] = _forecast_reasons(
+            fired["forecast_at_risk"] = _forecast_reasons(
                 forecast,
                 thresholds,
-                f"still at risk: at or above the {thresholds.p_at_risk_leave:.2f} threshold "
-                f"for leaving (entered at {thresholds.p_at_risk:.2f})",
+                f"so it stays at risk (it leaves below {_pct(thresholds.p_at_risk_leave)}; "
+                f"it entered at {_pct(thresholds.p_at_risk)})",
             )
         elif p >= thresholds.p_watch:
-            fired["p_exceed_watch"] = _forecast_reasons(
-                forecast, thresholds, f"at or above the {thresholds.p_watch:.2f} watch threshold"
+            fired["forecast_watch"] = _forecast_reasons(
+                forecast, thresholds,
+                f"at or above the {_pct(thresholds.p_watch)} watch threshold"
             )
         elif before >= severity("watch") and p >= thresholds.p_watch_leave:
-            fired["p_exceed_watch"] = _forecast_reasons(
+            fired["forecast_watch"] = _forecast_reasons(
                 forecast,
                 thresholds,
-                f"still watched: at or above the {thresholds.p_watch_leave:.2f} threshold for "
-                f"leaving (entered at {thresholds.p_watch:.2f})",
+                f"so it stays watched (it leaves below {_pct(thresholds.p_watch_leave)}; "
+                f"it entered at {_pct(thresholds.p_watch)})",
             )
     if thresholds.watch_fraction * limit <= ftb <= limit:
-        fired["ftb_near_limit"] = [
+        fired["current_ftb_near_limit"] = [
             f"Current FTB {ftb:.1f} um{where} is {ftb / limit:.0%} of the {limit:g} um limit "
             f"(watched from {thresholds.watch_fraction:.0%})."
         ]
@@ -427,13 +440,13 @@ def assess(
         if forecast is None:
             text += "; no forecast."
         elif forecast.complete:
-            text += f"; the stack is complete (P(exceed) = {forecast.p_exceed:.2f})."
+            text += "; every layer is on."
         else:
             lo, hi = forecast.band_um
             text += (
-                f"; final FTB forecast {_um(forecast.final_worst_um)} um (95% band "
-                f"{_um(lo)}-{_um(hi)} um); P(exceed) = {forecast.p_exceed:.2f}, below the "
-                f"{thresholds.p_watch:.2f} watch threshold."
+                f"; the final FTB is expected near {_um(forecast.final_worst_um)} um (95 % band "
+                f"{_um(lo)}-{_um(hi)} um): {_chance(forecast.p_exceed)} of ending over "
+                f"the limit, below the {_pct(thresholds.p_watch)} watch threshold."
             )
         return RiskAssessment(level="clear", reasons=(text,), rule="clear")
 

@@ -18,7 +18,7 @@ router = APIRouter(include_in_schema=False)
 
 def _landing(role: str) -> str:
     # The tool integrator's page is the refused-uploads list; everyone else starts at the board.
-    return "/rejected-uploads" if role == "tool" else "/board"
+    return "/rejected-uploads" if role == "uploader" else "/board"
 
 
 def _local(path: str | None) -> str | None:

@@ -12,13 +12,14 @@ from fastapi.responses import HTMLResponse
 from app.api.deps import DbDep
 from app.errors import DomainError
 from app.pages.common import User, refused, render, require
+from app.schemas import codes
 from app.services import holds
 
 router = APIRouter(include_in_schema=False)
 
-#: Rules a hold can carry (app.overlay.risk.RULES that hold, and a manual hold).
-HOLD_RULES = ("ftb_over_limit", "l2l_over_limit", "resistance_over_limit", "p_exceed_at_risk",
-              "manual")
+#: Rules a hold can carry: those of the at_risk and over_limit levels, and a manual hold.
+HOLD_RULES = tuple(code for code, meaning in codes.HOLD_RULES
+                   if meaning.endswith(("(over_limit).", "(at_risk).")) or code == "manual")
 PAGE_SIZE = 50
 
 

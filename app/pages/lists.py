@@ -17,7 +17,8 @@ from app.views.text import LEVELS, STATUSES
 
 router = APIRouter(include_in_schema=False)
 PAGE_SIZE = 50
-SORTS = {"serial": "Serial", "ftb": "FTB now", "p_exceed": "p exceed", "updated": "Updated"}
+SORTS = {"serial": "Serial", "ftb_current": "Current FTB",
+         "p_final_over_limit": "P(final over limit)", "updated": "Updated"}
 
 
 def _next(path: str, filters: dict[str, str], cursor: str | None) -> str | None:
@@ -35,7 +36,7 @@ def panel_list(
     lot: Annotated[str, Query(max_length=64)] = "",
     status: Annotated[str, Query(max_length=16)] = "",
     risk: Annotated[str, Query(max_length=16)] = "",
-    sort: Annotated[str, Query(max_length=16)] = "ftb",
+    sort: Annotated[str, Query(max_length=24)] = "ftb_current",
     order: Annotated[str, Query(max_length=4)] = "desc",
     cursor: Annotated[str, Query(max_length=200)] = "",
 ) -> HTMLResponse:

@@ -29,7 +29,7 @@ def _chosen_map(panel: PanelRead, choice: str) -> tuple[str, int] | None:
         if match is None:
             raise InvalidInput(f"map must be a side and layer such as 'A3', got '{choice}'")
         return match.group(1), int(match.group(2))
-    a, b = max(panel.layers.A, default=0), max(panel.layers.B, default=0)
+    a, b = panel.layers_reached.A, panel.layers_reached.B
     if not (a or b):
         return None
     return ("B", b) if b >= a and b else ("A", a)
@@ -44,7 +44,7 @@ def panel_context(db: DbDep, serial: str, choice: str, user: SignedIn) -> dict[s
     sites = (site_maps.panel_sites(db=db, serial=serial, side=chosen[0], layer=chosen[1])
              if chosen else None)
     layer_sites = sites.layers[0] if sites and sites.layers else None
-    ftb_arrows = [charts.Arrow(p.x_mm, p.y_mm, p.dx_um, p.dy_um) for p in panel.ftb.points]
+    ftb_arrows = [charts.Arrow(p.x_mm, p.y_mm, p.dx_um, p.dy_um) for p in panel.ftb_current_points]
     maps = {}
     if layer_sites is not None:
         side, layer = layer_sites.side, layer_sites.layer
@@ -72,10 +72,11 @@ def panel_context(db: DbDep, serial: str, choice: str, user: SignedIn) -> dict[s
         "ftb_map": charts.vector_map_svg(
             ftb_arrows, width_mm=product.panel_width_mm, height_mm=product.panel_height_mm,
             title="FTB at the check points", ident="ftb-map", size_px=420,
-            mark=panel.ftb.worst_at_mm if ftb_arrows else None, what="FTB"),
+            mark=panel.ftb_current_at_mm if ftb_arrows else None, what="FTB"),
         "site_maps": maps, "layer_sites": layer_sites,
         "map_choices": [f"{s}{k}" for s in ("A", "B")
-                        for k in (panel.layers.A if s == "A" else panel.layers.B)],
+                        for k in range(1, getattr(panel.layers_reached, s) + 1)
+                        if k not in getattr(panel.missing_layers, s)],
         "rows": layer_rows(stack.layers, flip_axis=product.flip_axis),
         "may_dispose": user.may("disposition"),
     }

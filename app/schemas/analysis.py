@@ -1,7 +1,8 @@
 """Requests and answers of the FTB analysis: fingerprints, shares, drift, lots, site vectors.
 
-Terms are in raw units (um, um/mm, um/mm^2) in ``TERM_NAMES`` order; tool-frame figures say so
-in their name. A figure that cannot be computed (too few runs for an interval) is null.
+Terms are in raw units (um, um/mm, um/mm^2) in ``TERM_NAMES`` order; figures in the exposure
+tool's own frame (the facing-side frame, docs/glossary.md) say so in their name
+(``*_facing_side``). A figure that cannot be computed (too few runs for an interval) is null.
 """
 
 from __future__ import annotations
@@ -27,7 +28,7 @@ class AnalysisFilter(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     product: str
-    tool: str | None = None
+    exposure_tool: str | None = None
     side: Side | None = None
     layer: int | None = Field(default=None, ge=1, le=64)
     lot: str | None = None
@@ -44,20 +45,20 @@ class TermFigure(BaseModel):
 
 
 class FingerprintRow(BaseModel):
-    tool: str
+    exposure_tool: str
     side: Side
     layer: int | None  # None: all layers of that side together
     count: int
     rest_count: int
-    terms_tool_frame: list[TermFigure]
-    rest_tool_frame: list[TermFigure]
-    difference_tool_frame: list[TermFigure]
+    terms_facing_side: list[TermFigure]
+    rest_facing_side: list[TermFigure]
+    difference_facing_side: list[TermFigure]
 
 
 class ToolWhatIf(BaseModel):
-    """FTB spread at the worst check point with and without one tool's bias."""
+    """FTB spread at the worst check point with and without one exposure tool's bias."""
 
-    tool: str
+    exposure_tool: str
     runs: int
     ftb_3sigma_with_um: float
     ftb_3sigma_without_um: float
@@ -86,7 +87,7 @@ class LotToolShares(BaseModel):
     lot: str
     panels: int
     mean_ftb_um: UmPair
-    by_tool: list[Contribution]
+    by_exposure_tool: list[Contribution]
 
 
 class VarianceComponent(BaseModel):
@@ -104,7 +105,7 @@ class ShareReport(BaseModel):
     mean_ftb_um: UmPair
     ftb_3sigma_um: float
     by_layer_side: list[Contribution]
-    by_tool: list[Contribution]
+    by_exposure_tool: list[Contribution]
     by_lot: list[LotToolShares]
     components: list[VarianceComponent]
     note: str = CAUTION
@@ -124,7 +125,7 @@ class DriftPoint(BaseModel):
     layer: int
     panels: int
     at: datetime
-    mean_tool_frame: float
+    mean_facing_side: float
     ewma: float
     lower: float
     upper: float
@@ -132,10 +133,10 @@ class DriftPoint(BaseModel):
 
 
 class DriftAlarm(BaseModel):
-    tool: str
+    exposure_tool: str
     side: Side
     term: TermName
-    size_tool_frame: float  # the EWMA's distance from the centre at the last point, raw units
+    size_facing_side: float  # the EWMA's distance from the centre at the last point, raw units
     strength: float  # the largest |EWMA - centre| over the limit half-width
     first_signal: datetime
     change_start: datetime
@@ -145,7 +146,7 @@ class DriftAlarm(BaseModel):
 
 
 class DriftChart(BaseModel):
-    tool: str
+    exposure_tool: str
     side: Side
     term: TermName
     centre: float
@@ -173,7 +174,7 @@ class FtbDistribution(BaseModel):
     ftb_p90_um: float | None
     ftb_p99_um: float | None
     forecast_panels: int
-    forecast_within_limit: float | None  # mean of 1 - P(exceed) over forecast panels
+    forecast_within_limit: float | None  # mean of 1 - P(final over limit) over forecast panels
 
 
 class LotRow(FtbDistribution):
@@ -219,7 +220,7 @@ class SiteVectors(BaseModel):
     panel: str
     side: Side
     layer: int
-    tool: str
+    exposure_tool: str
     frame: str
     measured_at: datetime
     model: str

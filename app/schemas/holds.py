@@ -5,6 +5,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from app.schemas import codes
 from app.schemas.figures import LayersReached, Probability, Um, UmBand
 from app.schemas.text import Note
 
@@ -29,7 +30,8 @@ class DispositionCreate(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    action: Literal["release", "scrap", "rework"]
+    action: Literal["release", "scrap", "rework"] = Field(
+        **codes.explained("What is decided for the held panel.", codes.DISPOSITIONS))
     layer: int | None = Field(default=None, ge=1, le=40,
                               description="Rework only, required: the layer reworked.")
     side: Literal["A", "B"] | None = Field(default=None,
@@ -59,21 +61,31 @@ class HoldRead(BaseModel):
     panel: str
     lot: str
     product: str
-    state: Literal["open", "closed"]
-    kind: Literal["automatic", "manual"]
-    rule: str
-    risk: str
-    severity: int
+    state: Literal["open", "closed"] = Field(
+        **codes.explained("The hold's state (the panel's is its status).", codes.HOLD_STATES))
+    kind: Literal["automatic", "manual"] = Field(
+        **codes.explained("Who put the hold on.", codes.HOLD_KINDS))
+    rule: str = Field(**codes.described(  # type: ignore[call-overload]
+        "The rule that put the hold on.", codes.HOLD_RULES))
+    risk: str = Field(**codes.described(  # type: ignore[call-overload]
+        "The panel's risk level now.", codes.RISK_LEVELS))
+    severity: int = Field(**codes.described(  # type: ignore[call-overload]
+        "Rank in the hold list (from the risk level when held); higher first.",
+        codes.SEVERITIES))
     layers_reached: LayersReached
-    ftb_now_um: Um
+    ftb_current_um: Um = Field(description="Current FTB: the worst FTB over the check points "
+                               "from the layers measured so far.")
     ftb_limit_um: Um = Field(description="The product's FTB limit.")
-    forecast_final_um: Um | None
-    forecast_band_um: UmBand | None = Field(examples=[[41.0, 77.5]])
-    p_exceed: Probability | None
-    reason: str
+    ftb_final_forecast_um: Um | None = Field(
+        description="Forecast final FTB, once every layer is on (null: no forecast).")
+    ftb_final_band_um: UmBand | None = Field(description="95 % band of the final FTB.")
+    p_final_over_limit: Probability | None = Field(
+        description="Probability that the final FTB ends over the FTB limit.")
+    reason: str = Field(description="Why the panel is held, in plain words with the figures.")
     held_since: datetime
-    held_by: str
-    disposition: str | None = None
+    held_by: str = Field(description="The rule's engine ('stackledger') or the key's label.")
+    disposition: Literal["release", "scrap", "rework"] | None = Field(
+        default=None, **codes.explained("What was decided (closed holds).", codes.DISPOSITIONS))
     disposition_note: str | None = None
     disposed_at: datetime | None = None
     disposed_by: str | None = None

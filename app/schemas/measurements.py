@@ -5,8 +5,9 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from app.schemas import codes
 from app.schemas.figures import PointOut, Ppm, Um, Urad
-from app.schemas.panels import PanelRead
+from app.schemas.panels import FitModel, PanelRead
 from app.services.batch import LAYER_BOUND
 
 # The schema gives shape and types only. What a value must be (side A or B, a time with a zone,
@@ -38,11 +39,11 @@ class MeasurementCreate(BaseModel):
     # is the catalogue's check.
     layer: int = Field(ge=-LAYER_BOUND, le=LAYER_BOUND,
                        description="Build-up layer, 1..layers_per_side of the product.")
-    side: str = Field(description="Side of the panel.", json_schema_extra={"enum": ["A", "B"]})
-    frame: str = Field(default="tool", description="Frame of the site coordinates and vectors: "
-                       "'tool' as the metrology tool saw the side, or 'panel'.",
-                       json_schema_extra={"enum": ["tool", "panel"]})
-    tool: str = _text("Exposure tool that printed the layer.")  # type: ignore[assignment]
+    side: str = Field(**codes.described("Side of the panel.", codes.SIDES))
+    frame: str = Field(default="facing_side", **codes.described(
+        "Frame of the site coordinates and vectors.", codes.FRAMES))
+    exposure_tool: str = _text(  # type: ignore[assignment]
+        "Exposure tool that printed the layer (not the metrology tool).")
     measured_at: str = Field(description="ISO 8601 time with a time zone.",
                              json_schema_extra={"format": "date-time"})
     metrology_tool: str | None = _text("Metrology tool that measured it.",  # type: ignore[assignment]
@@ -54,9 +55,11 @@ class MeasurementCreate(BaseModel):
 
 
 class FitRead(BaseModel):
-    model: str
-    requested: str
-    note: str | None
+    model: FitModel = Field(**codes.explained(  # type: ignore[call-overload]
+        "The terms fitted.", codes.FIT_MODELS))
+    requested: FitModel = Field(description="The terms the product asks for; more than "
+                                "'model' when the sites could not carry them (see 'note').")
+    note: str | None = Field(description="Why fewer terms were fitted than requested.")
     n_sites: int
     tx_um: Um
     ty_um: Um
@@ -72,10 +75,10 @@ class FitRead(BaseModel):
     mean_y_um: Um
     sigma_x_um: Um
     sigma_y_um: Um
-    m3s_x_um: Um
-    m3s_y_um: Um
-    max_residual_um: Um
-    max_residual_at_mm: PointOut
+    mean_plus_3sigma_x_um: Um = Field(description="|mean| + 3 sigma of the x residuals.")
+    mean_plus_3sigma_y_um: Um = Field(description="|mean| + 3 sigma of the y residuals.")
+    largest_residual_um: Um = Field(description="The largest residual vector's length.")
+    largest_residual_at_mm: PointOut = Field(description="The site of the largest residual.")
     leverage: float | None = Field(
         default=None,
         description="Largest leverage of the fitted model over the product's check points: "
@@ -89,14 +92,14 @@ class MeasurementRead(BaseModel):
     panel: str
     layer: int
     side: str
-    tool: str
+    exposure_tool: str
     measured_at: datetime
     received_at: datetime
     superseded: str | None = Field(
         default=None, description="Id of the earlier measurement this one supersedes."
     )
     fit: FitRead
-    state: PanelRead
+    panel_after: PanelRead = Field(description="The panel's estimate with this measurement in.")
 
 
 class ImportRead(BaseModel):

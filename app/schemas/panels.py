@@ -5,11 +5,13 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from app.schemas.figures import PointOut, Ppm, Probability, Um, UmBand, UmPair, Urad
+from app.schemas import codes
+from app.schemas.figures import LayersReached, PointOut, Ppm, Probability, Um, UmBand, UmPair, Urad
 from app.schemas.text import Identifier, Name
 from app.services.lifecycle import PanelStatus
 
 RiskLevel = Literal["clear", "watch", "at_risk", "over_limit"]
+FitModel = Literal["8_terms", "6_terms", "2_terms"]
 
 
 class PanelCreate(BaseModel):
@@ -33,46 +35,46 @@ class FtbPoint(BaseModel):
     length_um: Um
 
 
-class FtbRead(BaseModel):
-    worst_um: Um
-    worst_at_mm: PointOut
-    points: list[FtbPoint]
-
-
-class RemainingRead(BaseModel):
-    A: list[int]
-    B: list[int]
-
-
 class ForecastRead(BaseModel):
-    final_worst_um: Um = Field(description="Expected worst FTB over the check points at the "
-                                  "last layer.")
-    band_um: UmBand = Field(description="95 % band of the final worst FTB.")
-    p_exceed: Probability = Field(
-        description="Probability that the final worst FTB exceeds the limit.")
-    p_exceed_stderr: Probability | None = Field(
-        default=None, description="Monte Carlo standard error of p_exceed (states stored "
-        "before it was reported have none).")
+    ftb_final_forecast_um: Um = Field(
+        description="Forecast final FTB: the expected worst FTB over the check points once "
+        "every layer of both sides is on.")
+    ftb_final_band_um: UmBand = Field(description="95 % band of the final FTB.")
+    p_final_over_limit: Probability = Field(
+        description="Probability that the final FTB ends over the product's FTB limit.")
+    p_final_over_limit_stderr: Probability | None = Field(
+        default=None, description="Monte Carlo standard error of p_final_over_limit (estimates "
+        "stored before it was reported have none).")
     samples: int | None = Field(
         default=None, description="Monte Carlo samples drawn: more near a risk threshold, until "
         "the level is decided at 95 % confidence.")
-    remaining: RemainingRead
-    method: str
+    layers_to_come: SidesInt = Field(description="Layers not measured yet, per side.")
+    method: str = Field(description="How the forecast was made, in a few words.")
 
 
 class PanelRead(BaseModel):
     serial: str
     product: str
     lot: str
-    status: PanelStatus
-    layers: SidesInt = Field(description="Layers with a current measurement, per side.")
+    status: PanelStatus = Field(**codes.explained(  # type: ignore[call-overload]
+        "Where the panel is in its life.", codes.PANEL_STATUSES))
+    layers_reached: LayersReached
     missing_layers: SidesInt = Field(
         description="Layers below the highest measured one that have no measurement yet."
     )
-    ftb: FtbRead
-    l2l_worst_um: Um
-    risk: RiskLevel
-    reasons: list[str]
+    ftb_current_um: Um = Field(description="Current FTB: the worst FTB over the product's check "
+                               "points from the layers measured so far (both sides).")
+    ftb_current_at_mm: PointOut = Field(description="The check point of the current FTB.")
+    ftb_current_points: list[FtbPoint] = Field(
+        description="The current FTB vector at every check point, panel frame.")
+    l2l_worst_um: Um = Field(description="Worst L2L: the largest layer-to-layer overlay at a "
+                             "check point over the measured layers.")
+    risk: RiskLevel = Field(**codes.explained(  # type: ignore[call-overload]
+        "What the overlay says of the panel (docs/glossary.md).", codes.RISK_LEVELS))
+    risk_rule: str = Field(**codes.described(  # type: ignore[call-overload]
+        "The rule that set the risk level.", codes.HOLD_RULES))
+    reasons: list[str] = Field(description="Why, in plain words with the figures: one sentence "
+                               "or more for every rule that fired.")
     forecast: ForecastRead | None
     updated_at: datetime
 
@@ -86,9 +88,10 @@ class StackLayerRead(BaseModel):
     side: Literal["A", "B"]
     layer: int
     measurement_id: str
-    tool: str
+    exposure_tool: str
     measured_at: datetime
-    model: str
+    model: FitModel = Field(**codes.explained(  # type: ignore[call-overload]
+        "The terms the layer's fit used.", codes.FIT_MODELS))
     note: str | None
     tx_um: Um
     ty_um: Um
@@ -101,11 +104,11 @@ class StackLayerRead(BaseModel):
     sigma_x_um: Um
     sigma_y_um: Um
     l2l_worst_um: Um
-    cumulative_ftb_worst_um: Um = Field(
+    ftb_through_layer_um: Um = Field(
         description="Worst FTB over the check points using layers 1..layer of both sides."
     )
     side_position_um: UmPair = Field(
-        description="This side's layers 1..layer summed at the worst check point (worst_at_mm): "
+        description="This side's layers 1..layer summed at the current FTB's check point: "
         "where the side's top layer sits relative to the core there, panel frame."
     )
     fit_se_um: float | None = Field(
@@ -149,7 +152,7 @@ class StackedViaRead(BaseModel):
 class StackRead(BaseModel):
     serial: str
     frame: Literal["panel"] = "panel"
-    worst_at_mm: PointOut = Field(description="The check point of the worst FTB now.")
+    ftb_current_at_mm: PointOut = Field(description="The check point of the current FTB.")
     layers: list[StackLayerRead]
     residual_sigma_um: UmPair
     linear_worst_case_um: Um = Field(description="Planning figure, not the estimate.")

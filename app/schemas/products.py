@@ -6,7 +6,7 @@ from typing import Annotated, Final, Literal
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, model_validator
 
 from app.overlay.resistance import RHO_COPPER_20C
-from app.schemas.figures import PointIn, PointOut
+from app.schemas.figures import PointIn, PointPairOut
 from app.schemas.text import Identifier, single_line
 
 PANEL_MIN_MM: Final = 20.0
@@ -90,7 +90,6 @@ class ProductCreate(BaseModel):
     panel_height_mm: float = Field(ge=PANEL_MIN_MM, le=PANEL_MAX_MM)
     ftb_limit_um: float = Field(gt=0, le=10_000)
     l2l_limit_um: float = Field(gt=0, le=10_000)
-    model_terms: Literal[6, 8] = 6
     check_points_mm: list[PointIn] | None = Field(
         default=None,
         min_length=1,
@@ -98,8 +97,12 @@ class ProductCreate(BaseModel):
         description="Points where FTB is evaluated; default a 5 x 5 grid over the central 90 %.",
         examples=[[[-229.5, -231.75], [0.0, 0.0], [229.5, 231.75]]],
     )
-    p_watch: float = Field(default=0.05, gt=0, lt=1)
-    p_at_risk: float = Field(default=0.20, gt=0, lt=1)
+    model_terms: Literal[6, 8] = Field(default=6, description="Terms each layer's fit asks "
+                                       "for: 6 (Tx Ty Sx Sy Ox Oy) or 8 (adds Kx Ky).")
+    p_watch: float = Field(default=0.05, gt=0, lt=1, description="A panel is watched from this "
+                           "P(final over limit) (or a via miss probability) on.")
+    p_at_risk: float = Field(default=0.20, gt=0, lt=1, description="A panel is at risk (and "
+                             "held) from this P(final over limit) on.")
     vias: Vias | None = Field(
         default=None,
         description="Via and pad diameters; without them each layer's L2L is judged against "
@@ -107,13 +110,13 @@ class ProductCreate(BaseModel):
     )
     p_watch_leave: float = Field(
         default=0.02, gt=0, lt=1,
-        description="A watched panel leaves watch only when P(exceed) falls below this "
-        "(hysteresis); at most p_watch.",
+        description="A watched panel leaves watch only when P(final over limit) falls below "
+        "this (hysteresis); at most p_watch.",
     )
     p_at_risk_leave: float = Field(
         default=0.10, gt=0, lt=1,
-        description="An at-risk panel leaves at_risk only when P(exceed) falls below this "
-        "(hysteresis); at most p_at_risk.",
+        description="An at-risk panel leaves at_risk only when P(final over limit) falls "
+        "below this (hysteresis); at most p_at_risk.",
     )
 
     @model_validator(mode="after")
@@ -146,7 +149,9 @@ class ProductRead(BaseModel):
     ftb_limit_um: float
     l2l_limit_um: float
     model_terms: int
-    check_points_mm: list[PointOut]
+    check_points_mm: list[PointPairOut] = Field(
+        description="Check points as [x_mm, y_mm] pairs, panel frame (as the product was "
+        "created).")
     p_watch: float
     p_at_risk: float
     vias: Vias | None

@@ -21,7 +21,7 @@ class LayerSitesRead(BaseModel):
     side: Literal["A", "B"]
     layer: int
     measurement_id: str
-    tool: str
+    exposure_tool: str
     measured_at: datetime
     sites: list[SiteVector]
 

@@ -47,8 +47,15 @@ def _epoch_postgresql(element: epoch_seconds, compiler: Any, **kw: Any) -> str:
 
 
 _TERMS = (Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox, Fit.oy, Fit.kx, Fit.ky)
-_COLUMNS = (Measurement.panel, Lot.code, Measurement.side, Measurement.layer, Measurement.tool,
-            epoch_seconds(Measurement.measured_at), *_TERMS)
+_COLUMNS = (
+    Measurement.panel,
+    Lot.code,
+    Measurement.side,
+    Measurement.layer,
+    Measurement.exposure_tool,
+    epoch_seconds(Measurement.measured_at),
+    *_TERMS,
+)
 _BATCH = 500
 
 
@@ -148,8 +155,8 @@ def _filtered(query: Select[Any], f: AnalysisFilter) -> Select[Any]:
         query = query.where(Measurement.measured_at >= f.start)
     if f.end is not None:
         query = query.where(Measurement.measured_at < f.end)
-    if f.tool is not None:
-        query = query.where(Measurement.tool == f.tool)
+    if f.exposure_tool is not None:
+        query = query.where(Measurement.exposure_tool == f.exposure_tool)
     if f.side is not None:
         query = query.where(Measurement.side == f.side)
     if f.layer is not None:
@@ -196,7 +203,7 @@ def window_runs(session: Session, f: AnalysisFilter) -> tuple[ProductInfo, Runs]
 def whole_panels(f: AnalysisFilter) -> bool:
     """The filter keeps every run of the panels it selects (no window, tool, side or layer), so
     their stacks are the runs already read."""
-    return f.start is None and f.end is None and f.tool is None and f.side is None \
+    return f.start is None and f.end is None and f.exposure_tool is None and f.side is None \
         and f.layer is None
 
 

@@ -122,13 +122,13 @@ def _chart(runs: Runs, sg: _Subgroups, rows: np.ndarray, term: int, settings: Dr
         points = [
             DriftPoint.model_construct(
                 lot=runs.lots[sg.lot[i]], layer=int(sg.layer[i]), panels=int(sg.count[i]),
-                at=as_utc(float(sg.seconds[i])), mean_tool_frame=float(sg.mean[i, term]),
+                at=as_utc(float(sg.seconds[i])), mean_facing_side=float(sg.mean[i, term]),
                 ewma=base.target + float(chart.ewma[n]) * scale,
                 lower=base.target + float(chart.lower[n]) * scale,
                 upper=base.target + float(chart.upper[n]) * scale, rules=rules[n])
             for n, i in enumerate(order)
         ]
-        return DriftChart(tool=tool, side=side, term=TERM_NAMES[term],  # type: ignore[arg-type]
+        return DriftChart(exposure_tool=tool, side=side, term=TERM_NAMES[term],  # type: ignore[arg-type]
                           centre=base.target, sigma_between=base.between,
                           sigma_within=base.within, points=points)
 
@@ -153,8 +153,8 @@ def _alarms(group: list[_Series], settings: DriftSettings) -> list[DriftAlarm]:
         assert s.signal is not None
         fired = sorted({r for n in range(change.index, s.days.size) for r in s.rules[n]})
         out.append(DriftAlarm(
-            tool=s.tool, side=s.side, term=s.term,  # type: ignore[arg-type]
-            size_tool_frame=s.last,
+            exposure_tool=s.tool, side=s.side, term=s.term,  # type: ignore[arg-type]
+            size_facing_side=s.last,
             strength=s.strength, first_signal=as_utc(float(s.days[s.signal]) * DAY),
             change_start=as_utc(change.start * DAY), change_kind=change.kind,
             change_rate=change.size, rules=fired,
@@ -166,7 +166,7 @@ def tool_drift(*, db: Database, filters: AnalysisFilter, settings: DriftSettings
                all_charts: bool = False) -> DriftReport:
     """EWMA and run rules per tool, side and term; alarms strongest first."""
     settings = settings or DriftSettings()
-    fleet_filter = filters.model_copy(update={"tool": None})
+    fleet_filter = filters.model_copy(update={"exposure_tool": None})
     with db.reading() as session:
         info, runs = window_runs(session, fleet_filter)
     if runs.size == 0:
@@ -185,7 +185,7 @@ def tool_drift(*, db: Database, filters: AnalysisFilter, settings: DriftSettings
                 continue
             for t, tool in enumerate(runs.tools):
                 rows = np.flatnonzero((sg.tool == t) & (sg.side_b == side_b))
-                if rows.size == 0 or filters.tool not in (None, tool):
+                if rows.size == 0 or filters.exposure_tool not in (None, tool):
                     continue
                 series = _chart(runs, sg, rows, term, settings, base)
                 if series.signal is not None:

@@ -56,7 +56,8 @@ def _by_lot(runs: Runs, point: tuple[float, float]) -> list[LotToolShares]:
         n = len(sub.panels)
         rows = _contribution_rows(sub, sub.tool, list(sub.tools), n, point)
         mean = (sum(r.dx_um for r in rows), sum(r.dy_um for r in rows))
-        out.append(LotToolShares(lot=runs.lots[code], panels=n, mean_ftb_um=mean, by_tool=rows))
+        out.append(LotToolShares(lot=runs.lots[code], panels=n, mean_ftb_um=mean,
+                                   by_exposure_tool=rows))
     return out
 
 
@@ -100,7 +101,7 @@ def ftb_shares(*, db: Database, filters: AnalysisFilter) -> ShareReport:
         ftb_3sigma_um=ftb.worst_figure,
         by_layer_side=_contribution_rows(runs, inverse.astype(np.int64), labels, n_panels,
                                          point),
-        by_tool=_contribution_rows(runs, runs.tool, list(runs.tools), n_panels, point),
+        by_exposure_tool=_contribution_rows(runs, runs.tool, list(runs.tools), n_panels, point),
         by_lot=_by_lot(runs, point),
         components=_components(runs, point, mean),
     )

@@ -2,7 +2,8 @@
 lot and per day or week; and the site vectors of one panel, layer and side for vector maps.
 
 Everything here reads the stored panel states (FTB now at the worst check point, forecast
-P(exceed), risk level), which every accepted measurement rewrites; nothing is recomputed. A
+P(final over limit), risk level), which every accepted measurement rewrites; nothing is
+recomputed. A
 window selects the panels with a run measured in it; a panel's period is the day (or ISO week,
 UTC) of its latest run.
 """
@@ -71,8 +72,12 @@ def _states(db: Database, filters: AnalysisFilter) -> tuple[Any, list[Any]]:
             last = last.where(Measurement.measured_at >= filters.start)
         if filters.end is not None:
             last = last.where(Measurement.measured_at < filters.end)
-        for column, value in ((Measurement.tool, filters.tool), (Measurement.side, filters.side),
-                              (Measurement.layer, filters.layer), (Lot.code, filters.lot)):
+        for column, value in (
+            (Measurement.exposure_tool, filters.exposure_tool),
+            (Measurement.side, filters.side),
+            (Measurement.layer, filters.layer),
+            (Lot.code, filters.lot),
+        ):
             if value is not None:
                 last = last.where(column == value)
         sub = last.group_by(Measurement.panel).subquery()
@@ -139,5 +144,5 @@ def site_vectors(*, db: Database, panel: str, side: str, layer: int) -> SiteVect
             for i, (p, f, a, b) in enumerate(zip(posted, frame, mdx, mdy, strict=True))
         ]
         return SiteVectors(panel=panel, side=m.side, layer=m.layer,
-                           tool=m.tool, frame=m.frame, measured_at=m.measured_at,
+                           exposure_tool=m.exposure_tool, frame=m.frame, measured_at=m.measured_at,
                            model=fit.model, sites=vectors)

@@ -66,11 +66,11 @@ def _rows(runs: Runs, fp: Fingerprints, labels: list[tuple[str, int | None]]
             if fp.count[t, c] == 0:
                 continue
             rows.append(FingerprintRow(
-                tool=tool, side=side, layer=layer,
+                exposure_tool=tool, side=side, layer=layer,
                 count=int(fp.count[t, c]), rest_count=int(fp.rest_count[t, c]),
-                terms_tool_frame=_figures(fp.mean[t, c], fp.half_width[t, c]),
-                rest_tool_frame=_figures(fp.rest_mean[t, c], fp.rest_half_width[t, c]),
-                difference_tool_frame=_figures(fp.difference[t, c],
+                terms_facing_side=_figures(fp.mean[t, c], fp.half_width[t, c]),
+                rest_facing_side=_figures(fp.rest_mean[t, c], fp.rest_half_width[t, c]),
+                difference_facing_side=_figures(fp.difference[t, c],
                                                fp.difference_half_width[t, c]),
             ))
     return rows
@@ -105,7 +105,7 @@ def _what_if(info: ProductInfo, window: Runs, stack: Runs, by_side: Fingerprints
         without = spread(panel_ftb_terms(terms, sign, stack.panel, n_panels),
                          info.check_x, info.check_y)
         out.append(ToolWhatIf(
-            tool=tool, runs=int(on_tool.sum()), ftb_3sigma_with_um=base.worst_figure,
+            exposure_tool=tool, runs=int(on_tool.sum()), ftb_3sigma_with_um=base.worst_figure,
             ftb_3sigma_without_um=without.worst_figure,
             adds_um=base.worst_figure - without.worst_figure,
         ))

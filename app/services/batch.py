@@ -6,7 +6,7 @@ The only thing that differs is the locator, which says where a problem is in wha
 JSON pointer for a posted body, a file line and column for a CSV file.
 
 Columns are per measurement (``panel`` .. ``genealogy``, ``counts``) or per site (``x`` ..
-``dy``, as sent: side B may be in its tool frame); the sites of measurement i are the
+``dy``, as sent: side B may be in its facing-side frame); the sites of measurement i are the
 ``counts[i]`` rows after those of measurement i-1.
 """
 
@@ -64,7 +64,7 @@ class MeasurementBatch:
     layer: NDArray[np.int64]
     side: list[str]
     frame: list[str]
-    tool: list[str]
+    exposure_tool: list[str]
     measured_at: list[str]
     counts: NDArray[np.int64]
     x: NDArray[np.float64]

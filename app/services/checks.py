@@ -21,10 +21,13 @@ import numpy as np
 
 from app.config import get_settings
 from app.errors import FieldError
+from app.schemas import codes
 from app.schemas.text import control_problem
 from app.services.batch import GENEALOGY, MeasurementBatch
 from app.services.lifecycle import PanelStatus
 from app.store.tables import Product
+
+FRAMES: Final = tuple(codes.codes(codes.FRAMES))
 
 MAX_REPORTED: Final = 200
 TEXT_MAX: Final = 64
@@ -90,14 +93,14 @@ def _fields(batch: MeasurementBatch, facts: list[PanelFacts | None],
                           f"product '{product.code}', got {layer}")
         if batch.side[i] not in ("A", "B"):
             yield Problem(i, None, "side", f"side must be 'A' or 'B', got '{batch.side[i]}'")
-        if batch.frame[i] not in ("tool", "panel"):
+        if batch.frame[i] not in FRAMES:
             yield Problem(i, None, "frame",
-                          f"frame must be 'tool' or 'panel', got '{batch.frame[i]}'")
+                          f"frame must be 'facing_side' or 'panel', got '{batch.frame[i]}'")
         if times[i] is None:
             yield Problem(i, None, "measured_at", f"'{batch.measured_at[i]}' is not an ISO 8601 "
                           "time with a time zone (for example 2026-11-02T06:00:00Z)")
-        if (message := _text_problem("tool", batch.tool[i], True)) is not None:
-            yield Problem(i, None, "tool", message)
+        if (message := _text_problem("exposure_tool", batch.exposure_tool[i], True)) is not None:
+            yield Problem(i, None, "exposure_tool", message)
         for name, values in optional:
             if (message := _text_problem(name, values[i], False)) is not None:
                 yield Problem(i, None, name, message)

@@ -81,7 +81,7 @@ def learn(session: Session, *, product: Product) -> ProductHistory:
     for start in range(0, len(serials), 500):
         rows = session.execute(
             select(
-                Measurement.panel, Measurement.side, Measurement.layer, Measurement.tool,
+                Measurement.panel, Measurement.side, Measurement.layer, Measurement.exposure_tool,
                 Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox, Fit.oy, Fit.kx, Fit.ky,
             )
             .join(Fit, (Fit.panel == Measurement.panel) & (Fit.measurement_id == Measurement.id))

@@ -21,8 +21,10 @@ from typing import Any, Final
 from app.schemas.holds import HoldList, HoldRead
 
 COLUMNS: Final = (
-    "severity", "risk", "panel", "lot", "product", "layers_a", "layers_b", "ftb_now_um",
-    "forecast_final_um", "p_exceed", "reason", "held_since", "held_by", "kind", "hold_id",
+    "severity", "risk", "rule", "panel", "lot", "product", "layers_reached_a",
+    "layers_reached_b", "ftb_current_um", "ftb_limit_um", "ftb_final_forecast_um",
+    "ftb_final_band_low_um", "ftb_final_band_high_um", "p_final_over_limit", "reason",
+    "held_since", "held_by", "kind", "hold_id",
 )
 _FORMULA_START: Final = ("=", "+", "-", "@", "\t", "\r", "\0")
 _FORMULA_AFTER_BREAK: Final = re.compile(r"([\r\n])(?=[=+\-@\t\r\0])")
@@ -38,10 +40,12 @@ def safe_cell(value: Any) -> Any:
 
 def _row(h: HoldRead) -> list[Any]:
     return [
-        h.severity, h.risk, h.panel, h.lot, h.product, h.layers_reached.get("A", 0),
-        h.layers_reached.get("B", 0), round(h.ftb_now_um, 2),
-        None if h.forecast_final_um is None else round(h.forecast_final_um, 2),
-        None if h.p_exceed is None else round(h.p_exceed, 4), h.reason,
+        h.severity, h.risk, h.rule, h.panel, h.lot, h.product, h.layers_reached.A,
+        h.layers_reached.B, round(h.ftb_current_um, 2), h.ftb_limit_um,
+        None if h.ftb_final_forecast_um is None else round(h.ftb_final_forecast_um, 2),
+        None if h.ftb_final_band_um is None else round(h.ftb_final_band_um[0], 2),
+        None if h.ftb_final_band_um is None else round(h.ftb_final_band_um[1], 2),
+        None if h.p_final_over_limit is None else round(h.p_final_over_limit, 4), h.reason,
         h.held_since.isoformat(), h.held_by, h.kind, h.id,
     ]
 

@@ -29,6 +29,7 @@ from sqlalchemy.orm import Session
 from app.db import Database
 from app.errors import Conflict, FieldError, InvalidInput, NotFound
 from app.overlay.risk import RiskAssessment, severity
+from app.schemas.figures import LayersReached
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit, panel_estimate
 from app.services import cursor as cursors
@@ -118,11 +119,12 @@ def _to_read(row: Row[Any]) -> HoldRead:
         id=str(hold.id), panel=hold.panel, lot=lot, product=product,
         state=hold.state, kind=hold.kind, rule=hold.rule, risk=risk or "clear",
         severity=hold.severity,
-        layers_reached={"A": max(layers_a or [], default=0), "B": max(layers_b or [], default=0)},
-        ftb_now_um=ftb or 0.0, ftb_limit_um=ftb_limit,
-        forecast_final_um=forecast.final_worst_um if forecast else None,
-        forecast_band_um=forecast.band_um if forecast else None,
-        p_exceed=p_exceed,
+        layers_reached=LayersReached(A=max(layers_a or [], default=0),
+                                     B=max(layers_b or [], default=0)),
+        ftb_current_um=ftb or 0.0, ftb_limit_um=ftb_limit,
+        ftb_final_forecast_um=forecast.final_worst_um if forecast else None,
+        ftb_final_band_um=forecast.band_um if forecast else None,
+        p_final_over_limit=p_exceed,
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
         disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,

@@ -1,7 +1,7 @@
 """CSV import: read a file of site rows into the batch form, then the one pipeline.
 
 One row per site; the header names the columns, in any order:
-``panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um``, and optionally
+``panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um``, and optionally
 ``metrology_tool,recipe,artwork,shift``. Consecutive rows that agree on every column but the
 four site columns form one measurement; a measurement whose rows reappear further down, not
 next to the first ones, is refused rather than read as a second measurement.
@@ -42,7 +42,7 @@ from app.services.batch import (
 )
 from app.services.checks import MAX_REPORTED
 
-REQUIRED: Final = ("panel", "layer", "side", "frame", "tool", "measured_at", *SITE_FIELDS)
+REQUIRED: Final = ("panel", "layer", "side", "frame", "exposure_tool", "measured_at", *SITE_FIELDS)
 OPTIONAL: Final = GENEALOGY
 
 Progress = Callable[[int], None]
@@ -176,11 +176,20 @@ def _batch(reading: _Reading) -> tuple[MeasurementBatch, np.ndarray]:
     genealogy: dict[str, list[str | None]] = {
         name: [v or None for v in texts(name)] for name in OPTIONAL if name in column}
     batch = MeasurementBatch(
-        panel=texts("panel"), layer=layer, side=texts("side"), frame=texts("frame"),
-        tool=texts("tool"), measured_at=texts("measured_at"), counts=counts.astype(np.int64),
-        x=sites[:, 0].copy(), y=sites[:, 1].copy(), dx=sites[:, 2].copy(),
-        dy=sites[:, 3].copy(), locator=CsvLocator(first_line=head_rows + 2),
-        genealogy=genealogy)
+        panel=texts("panel"),
+        layer=layer,
+        side=texts("side"),
+        frame=texts("frame"),
+        exposure_tool=texts("exposure_tool"),
+        measured_at=texts("measured_at"),
+        counts=counts.astype(np.int64),
+        x=sites[:, 0].copy(),
+        y=sites[:, 1].copy(),
+        dx=sites[:, 2].copy(),
+        dy=sites[:, 3].copy(),
+        locator=CsvLocator(first_line=head_rows + 2),
+        genealogy=genealogy,
+    )
     return batch, usable
 
 

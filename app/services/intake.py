@@ -108,13 +108,14 @@ def _in_force(layers: dict[str, panel_estimate.Layers]) -> dict[LayerKey, uuid.U
 
 
 def _to_panel_frame(batch: MeasurementBatch, products: list[Product]) -> np.ndarray:
-    """Side B posted in its tool frame goes to the panel frame: one mirror call per flip axis."""
+    """Side B posted in its facing-side frame goes to the panel frame: one mirror call per flip
+    axis."""
     sites = np.column_stack((batch.x, batch.y, batch.dx, batch.dy))
-    in_tool_b = np.array([s == "B" and f == "tool" for s, f in
+    in_side_frame_b = np.array([s == "B" and f == "facing_side" for s, f in
                           zip(batch.side, batch.frame, strict=True)], dtype=bool)
     flips = np.array([p.flip_axis for p in products])
     for axis in ("x", "y"):
-        rows = np.repeat(in_tool_b & (flips == axis), batch.counts)
+        rows = np.repeat(in_side_frame_b & (flips == axis), batch.counts)
         if rows.any():
             sites[rows] = np.column_stack(mirror_sites(
                 *(sites[rows, c] for c in range(4)), side="B", flip_axis=axis))
@@ -149,10 +150,15 @@ def _estimate(plan: Plan, serials: Iterable[str], layers: dict[str, panel_estima
         if serial in wanted:
             fit = plan.fits[j]
             layers[serial][batch.side[j]][int(batch.layer[j])] = panel_estimate.CurrentLayer(
-                measurement_id=plan.ids[j], tool=batch.tool[j], measured_at=plan.times[j],
-                model=fit.model, note=fit.note, terms=np.asarray(fit.terms, dtype=np.float64),
+                measurement_id=plan.ids[j],
+                exposure_tool=batch.exposure_tool[j],
+                measured_at=plan.times[j],
+                model=fit.model,
+                note=fit.note,
+                terms=np.asarray(fit.terms, dtype=np.float64),
                 sigma_um=(float(fit.sigma_um[0]), float(fit.sigma_um[1])),
-                leverage=float(fit.leverage))
+                leverage=float(fit.leverage),
+            )
     first = {s: j for j, s in reversed(list(enumerate(batch.panel)))}
     for serial in wanted:
         product = plan.products[first[serial]]
@@ -283,7 +289,8 @@ def write(
         genealogy = batch.genealogy_rows()
         bulk.insert(session, Measurement.__table__, _rows(Measurement.__table__, (
             {"panel": serial, "id": plan.ids[j], "layer": int(batch.layer[j]),
-             "side": batch.side[j], "frame": batch.frame[j], "tool": batch.tool[j],
+             "side": batch.side[j], "frame": batch.frame[j],
+             "exposure_tool": batch.exposure_tool[j],
              "measured_at": plan.times[j], "received_at": received,
              "n_sites": int(batch.counts[j]), "superseded_by": superseded_by[j],
              "source": source, "key_label": key_label, **genealogy[j]}

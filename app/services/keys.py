@@ -15,16 +15,17 @@ from sqlalchemy import select
 
 from app.db import Database
 from app.errors import Forbidden, InvalidInput, NotFound, Unauthenticated
+from app.schemas import codes
 from app.services import limits
 from app.store.tables import ApiKey, utcnow
 
-ROLES: Final = ("tool", "engineer", "supervisor", "admin")
+ROLES: Final = tuple(code for code, _ in codes.ROLES)
 NO_VALID_KEY: Final = "(no valid key)"
 
 #: What each action needs. Admin may do everything.
 PERMISSIONS: Final[dict[str, frozenset[str]]] = {
-    "post_measurement": frozenset({"tool", "admin"}),
-    "register_panel": frozenset({"tool", "engineer", "supervisor", "admin"}),
+    "post_measurement": frozenset({"uploader", "admin"}),
+    "register_panel": frozenset({"uploader", "engineer", "supervisor", "admin"}),
     "read_product": frozenset(ROLES),
     "create_product": frozenset({"admin"}),
     "query": frozenset({"engineer", "supervisor", "admin"}),

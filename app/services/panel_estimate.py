@@ -39,9 +39,25 @@ from app.store.tables import Fit, Measurement, PanelEstimate, Product, utcnow
 #: What a state rebuild and the stack view read of each measurement in force: plain columns,
 #: not ORM objects (for an import's hundreds of panels that is a tenth of the cost).
 _LAYER_COLUMNS = (
-    Measurement.panel, Measurement.side, Measurement.layer, Measurement.id, Measurement.tool,
-    Measurement.measured_at, Fit.model, Fit.note, Fit.tx, Fit.ty, Fit.sx, Fit.sy, Fit.ox,
-    Fit.oy, Fit.kx, Fit.ky, Fit.sigma_x_um, Fit.sigma_y_um, Fit.leverage,
+    Measurement.panel,
+    Measurement.side,
+    Measurement.layer,
+    Measurement.id,
+    Measurement.exposure_tool,
+    Measurement.measured_at,
+    Fit.model,
+    Fit.note,
+    Fit.tx,
+    Fit.ty,
+    Fit.sx,
+    Fit.sy,
+    Fit.ox,
+    Fit.oy,
+    Fit.kx,
+    Fit.ky,
+    Fit.sigma_x_um,
+    Fit.sigma_y_um,
+    Fit.leverage,
 )
 
 
@@ -50,7 +66,7 @@ class CurrentLayer:
     """The measurement in force for one side and layer, with its fit (panel frame)."""
 
     measurement_id: uuid.UUID
-    tool: str
+    exposure_tool: str
     measured_at: datetime
     model: str
     note: str | None
@@ -86,7 +102,8 @@ def current_layers_many(session: Session, serials: list[str]) -> dict[str, Layer
         ).all()
         for r in rows:
             out[r.panel][r.side][r.layer] = CurrentLayer(
-                measurement_id=r.id, tool=r.tool, measured_at=r.measured_at, model=r.model,
+                measurement_id=r.id, exposure_tool=r.exposure_tool, measured_at=r.measured_at,
+                model=r.model,
                 note=r.note,
                 terms=np.array([r.tx, r.ty, r.sx, r.sy, r.ox, r.oy, r.kx, r.ky], dtype=np.float64),
                 sigma_um=(r.sigma_x_um, r.sigma_y_um), leverage=r.leverage or 0.0)
@@ -154,8 +171,8 @@ def _forecast(
     return forecast_final(
         observed_a={k: cl.terms for k, cl in layers["A"].items()},
         observed_b={k: cl.terms for k, cl in layers["B"].items()},
-        tools_a={k: cl.tool for k, cl in layers["A"].items()},
-        tools_b={k: cl.tool for k, cl in layers["B"].items()},
+        tools_a={k: cl.exposure_tool for k, cl in layers["A"].items()},
+        tools_b={k: cl.exposure_tool for k, cl in layers["B"].items()},
         history=history,
         panel_id=serial,
         points_mm=check_points(product),

@@ -13,10 +13,11 @@ from app.db import Database
 from app.errors import Conflict, InvalidInput, NotFound
 from app.overlay.capture import InterfaceCapture
 from app.overlay.model import evaluate, report_units
+from app.schemas import codes
+from app.schemas.figures import LayersReached
 from app.schemas.panels import (
     ForecastRead,
     FtbPoint,
-    FtbRead,
     PanelCreate,
     PanelPage,
     PanelRead,
@@ -28,13 +29,14 @@ from app.services import audit, panel_estimate
 from app.services import cursor as cursors
 from app.services.lifecycle import PanelStatus
 from app.services.products import get_by_code_or_raise
+from app.store.stored import StoredForecast
 from app.store.tables import Lot, Panel, PanelEstimate, Product, utcnow
 from app.store.upsert import insert_ignore
 
 SORTS = {
     "serial": (Panel.serial,),
-    "ftb": (PanelEstimate.ftb_worst_um,),
-    "p_exceed": (PanelEstimate.p_exceed,),
+    "ftb_current": (PanelEstimate.ftb_worst_um,),
+    "p_final_over_limit": (PanelEstimate.p_exceed,),
     "updated": (PanelEstimate.updated_at,),
 }
 
@@ -62,19 +64,26 @@ def read_model(panel: Panel, product_code: str, lot_code: str, st: PanelEstimate
         product=product_code,
         lot=lot_code,
         status=panel.status,  # type: ignore[arg-type]
-        layers=SidesInt(A=st.layers_a, B=st.layers_b),
+        layers_reached=LayersReached(A=max(st.layers_a, default=0), B=max(st.layers_b, default=0)),
         missing_layers=SidesInt(A=st.missing_a, B=st.missing_b),
-        ftb=FtbRead(
-            worst_um=st.ftb_worst_um,
-            worst_at_mm=(st.ftb_worst_x_mm, st.ftb_worst_y_mm),
-            points=[FtbPoint(**p.model_dump()) for p in st.ftb_points],
-        ),
+        ftb_current_um=st.ftb_worst_um,
+        ftb_current_at_mm=(st.ftb_worst_x_mm, st.ftb_worst_y_mm),
+        ftb_current_points=[FtbPoint(**p.model_dump()) for p in st.ftb_points],
         l2l_worst_um=st.l2l_worst_um,
         risk=st.risk,  # type: ignore[arg-type]
+        risk_rule=st.risk_rule,
         reasons=st.reasons,
-        forecast=ForecastRead.model_validate(st.forecast.model_dump()) if st.forecast else None,
+        forecast=forecast_read(st.forecast) if st.forecast else None,
         updated_at=st.updated_at,
     )
+
+
+def forecast_read(f: StoredForecast) -> ForecastRead:
+    return ForecastRead(
+        ftb_final_forecast_um=f.final_worst_um, ftb_final_band_um=f.band_um,
+        p_final_over_limit=f.p_exceed, p_final_over_limit_stderr=f.p_exceed_stderr,
+        samples=f.samples, layers_to_come=SidesInt(A=f.remaining.A, B=f.remaining.B),
+        method=f.method)
 
 
 def to_read(session: Session, panel: Panel) -> PanelRead:
@@ -153,7 +162,7 @@ def list_panels(
             query = query.where(Panel.status == status)
         if risk:
             query = query.where(PanelEstimate.risk == risk)
-        if sort == "p_exceed":
+        if sort == "p_final_over_limit":
             query = query.where(key.is_not(None))  # a panel with no measurement has no forecast
         if cursor:
             read_key = {"serial": cursors.text, "updated": cursors.instant}.get(sort,
@@ -173,8 +182,8 @@ def list_panels(
             last = rows[limit - 1]
             value = {
                 "serial": last[0].serial,
-                "ftb": last[3].ftb_worst_um if last[3] else None,
-                "p_exceed": last[3].p_exceed if last[3] else None,
+                "ftb_current": last[3].ftb_worst_um if last[3] else None,
+                "p_final_over_limit": last[3].p_exceed if last[3] else None,
                 "updated": last[3].updated_at.isoformat() if last[3] else None,
             }[sort]
             next_cursor = cursors.encode([value, last[0].serial])
@@ -205,9 +214,9 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     side=side,  # type: ignore[arg-type]
                     layer=k,
                     measurement_id=str(f.measurement_id),
-                    tool=f.tool,
+                    exposure_tool=f.exposure_tool,
                     measured_at=f.measured_at,
-                    model=f.model,
+                    model=codes.FIT_MODEL_NAMES[f.model],
                     note=f.note,
                     tx_um=report["tx_um"],
                     ty_um=report["ty_um"],
@@ -220,14 +229,14 @@ def stack(*, db: Database, serial: str) -> StackRead:
                     sigma_x_um=f.sigma_um[0],
                     sigma_y_um=f.sigma_um[1],
                     l2l_worst_um=l2l[k],
-                    cumulative_ftb_worst_um=_cumulative_at(summary.cumulative_worst_um, k)
+                    ftb_through_layer_um=_cumulative_at(summary.cumulative_worst_um, k)
                     if summary else 0.0,
                     side_position_um=(float(position[0]), float(position[1])),
                     **_capture_read(faces.get((side, k))),
                 ))
         return StackRead(
             serial=panel.serial,
-            worst_at_mm=worst_at,
+            ftb_current_at_mm=worst_at,
             layers=out,
             residual_sigma_um=summary.residual_sigma_um if summary else (0.0, 0.0),
             linear_worst_case_um=summary.linear_worst_case_um if summary else 0.0,

@@ -27,7 +27,7 @@ def panel_sites(*, db: Database, serial: str, side: str | None = None,
             model_dx, model_dy = evaluate(cl.terms, xy[:, 0], xy[:, 1])
             out.append(LayerSitesRead(
                 side=s,
-                layer=k, measurement_id=str(cl.measurement_id), tool=cl.tool,
+                layer=k, measurement_id=str(cl.measurement_id), exposure_tool=cl.exposure_tool,
                 measured_at=cl.measured_at,
                 sites=[SiteVector(x_mm=x, y_mm=y, dx_um=dx, dy_um=dy, residual_dx_um=dx - mx,
                                   residual_dy_um=dy - my)

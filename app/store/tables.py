@@ -156,8 +156,8 @@ class Measurement(Base):
     id: Mapped[uuid.UUID] = mapped_column(Uuid, primary_key=True, default=uuid.uuid4)
     layer: Mapped[int]
     side: Mapped[str] = mapped_column(String(1))
-    frame: Mapped[str] = mapped_column(String(8))
-    tool: Mapped[str] = mapped_column(String(64))
+    frame: Mapped[str] = mapped_column(String(16))  # "facing_side" or "panel", as posted
+    exposure_tool: Mapped[str] = mapped_column(String(64))
     measured_at: Mapped[datetime] = mapped_column(Stamp)
     received_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)
     n_sites: Mapped[int]
@@ -329,6 +329,7 @@ class AuditEntry(Base):
     details: Mapped[dict[str, Any]]
 
 
-# The FTB analysis reads one product's runs in a time window, and one tool's runs over time.
+# The FTB analysis reads one product's runs in a time window, and one exposure tool's runs over
+# time.
 Index("ix_measurements_time", Measurement.measured_at)
-Index("ix_measurements_tool_time", Measurement.tool, Measurement.measured_at)
+Index("ix_measurements_exposure_tool_time", Measurement.exposure_tool, Measurement.measured_at)

@@ -34,11 +34,12 @@ Row = dict[str, Any]
 def fingerprint_tables(r: FingerprintReport) -> dict[str, list[Row]]:
     rows = []
     for f in r.rows:
-        for own, rest, diff in zip(f.terms_tool_frame, f.rest_tool_frame,
-                                   f.difference_tool_frame, strict=True):
+        for own, rest, diff in zip(f.terms_facing_side, f.rest_facing_side,
+                                   f.difference_facing_side, strict=True):
             rows.append({
-                "tool": f.tool, "side": f.side, "layer": f.layer, "term": own.term,
-                "count": f.count, "mean_tool_frame": own.mean, "half_width": own.half_width,
+                "exposure_tool": f.exposure_tool, "side": f.side, "layer": f.layer,
+                "term": own.term,
+                "count": f.count, "mean_facing_side": own.mean, "half_width": own.half_width,
                 "rest_count": f.rest_count, "rest_mean": rest.mean,
                 "rest_half_width": rest.half_width, "difference": diff.mean,
                 "difference_half_width": diff.half_width,
@@ -49,19 +50,19 @@ def fingerprint_tables(r: FingerprintReport) -> dict[str, list[Row]]:
 
 def share_tables(r: ShareReport) -> dict[str, list[Row]]:
     lots = [{"lot": lot.lot, "panels": lot.panels, **c.model_dump()}
-            for lot in r.by_lot for c in lot.by_tool]
+            for lot in r.by_lot for c in lot.by_exposure_tool]
     return {
         "layer_side": [c.model_dump() for c in r.by_layer_side],
-        "tool": [c.model_dump() for c in r.by_tool],
-        "lot_tool": lots,
+        "exposure_tool": [c.model_dump() for c in r.by_exposure_tool],
+        "lot_exposure_tool": lots,
         "components": [c.model_dump() for c in r.components],
     }
 
 
 def drift_tables(r: DriftReport) -> dict[str, list[Row]]:
     alarms = [{**a.model_dump(), "rules": "; ".join(a.rules)} for a in r.alarms]
-    points = [{"tool": c.tool, "side": c.side, "term": c.term, "centre": c.centre,
-               **p.model_dump(), "rules": "; ".join(p.rules)}
+    points = [{"exposure_tool": c.exposure_tool, "side": c.side, "term": c.term,
+               "centre": c.centre, **p.model_dump(), "rules": "; ".join(p.rules)}
               for c in r.charts for p in c.points]
     return {"alarms": alarms, "points": points}
 

@@ -86,14 +86,14 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
                    layers_per_side: int, ident: str = "stack-walk") -> Markup:
     """Cumulative FTB at the worst check point after each layer, each side's stack there, the
     forecast fan to the last layer and the limit line."""
-    ftb = sorted({(r.layer, r.cumulative_ftb_worst_um) for r in stack.layers})
+    ftb = sorted({(r.layer, r.ftb_through_layer_um) for r in stack.layers})
     sides = {s: [(r.layer, math.hypot(*r.side_position_um)) for r in stack.layers
                  if r.side == s] for s in ("A", "B")}
     forecast = panel.forecast
     last = max((k for k, _ in ftb), default=0)
     values = [v for _, v in ftb] + [v for s in sides.values() for _, v in s] + [ftb_limit_um]
     if forecast is not None:
-        values += [forecast.final_worst_um, forecast.band_um[1]]
+        values += [forecast.ftb_final_forecast_um, forecast.ftb_final_band_um[1]]
     step = nice_step(max(values) * 1.08)
     f = _Frame(left=62, top=16, width=560, height=270, x_max=layers_per_side,
                y_max=step * math.ceil(max(values) * 1.08 / step))
@@ -115,17 +115,19 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
                 f'text-anchor="middle" font-size="12">Misregistration at the worst check point '
                 f'(µm)</text>')
     if forecast is not None and last < layers_per_side:
-        x0, y0 = f.x(last), f.y(panel.ftb.worst_um)
-        lo, hi = forecast.band_um
+        x0, y0 = f.x(last), f.y(panel.ftb_current_um)
+        lo, hi = forecast.ftb_final_band_um
         xn = f.x(layers_per_side)
-        body.append(f'<path class="forecast-fan" d="M{x0:.1f},{y0:.1f} L{xn:.1f},{f.y(hi):.1f} '
-                    f'L{xn:.1f},{f.y(lo):.1f} Z" '
-                    f'fill="{FAN}" fill-opacity="0.3" stroke="{FAN}">'
-                    f"<title>Forecast 95 % band at layer {layers_per_side}: {_fmt(lo)} to "
-                    f"{_fmt(hi)} µm</title></path>"
-                    f'<line class="forecast-line" x1="{x0:.1f}" y1="{y0:.1f}" '
-                    f'x2="{f.x(layers_per_side):.1f}" y2="{f.y(forecast.final_worst_um):.1f}" '
-                    f'stroke="{FTB}" stroke-width="2" stroke-dasharray="2 4"/>')
+        body.append(
+            f'<path class="forecast-fan" d="M{x0:.1f},{y0:.1f} L{xn:.1f},{f.y(hi):.1f} '
+            f'L{xn:.1f},{f.y(lo):.1f} Z" '
+            f'fill="{FAN}" fill-opacity="0.3" stroke="{FAN}">'
+            f"<title>Forecast 95 % band at layer {layers_per_side}: {_fmt(lo)} to "
+            f"{_fmt(hi)} µm</title></path>"
+            f'<line class="forecast-line" x1="{x0:.1f}" y1="{y0:.1f}" '
+            f'x2="{f.x(layers_per_side):.1f}" y2="{f.y(forecast.ftb_final_forecast_um):.1f}" '
+            f'stroke="{FTB}" stroke-width="2" stroke-dasharray="2 4"/>'
+        )
     body.append(f'<line class="limit-line" x1="{f.left}" x2="{f.left + f.width}" '
                 f'y1="{f.y(ftb_limit_um):.1f}" y2="{f.y(ftb_limit_um):.1f}" stroke="{LIMIT}" '
                 f'stroke-width="2" stroke-dasharray="8 4"/>'
@@ -145,9 +147,9 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
         ("circle", FTB, "", "FTB, both sides"), ("square", SIDE_A, "6 3", "Side A stack"),
         ("triangle", SIDE_B, "2 3", "Side B stack"), ("fan", FAN, "", "Forecast, 95 % band"),
         ("limit", LIMIT, "8 4", "FTB limit")]))
-    desc = (f"Worst FTB after each of {len(ftb)} layers, ending at {_fmt(panel.ftb.worst_um)} µm "
+    desc = (f"Worst FTB after each of {len(ftb)} layers, ending at {_fmt(panel.ftb_current_um)} µm "
             f"against a limit of {_fmt(ftb_limit_um)} µm"
-            + (f"; forecast {_fmt(forecast.final_worst_um)} µm at layer {layers_per_side}"
+            + (f"; forecast {_fmt(forecast.ftb_final_forecast_um)} µm at layer {layers_per_side}"
                if forecast is not None else "") + ".")
     return _svg(640, 360, "Stack walk", desc, body, ident=ident, css_class="chart stack-walk")
 

@@ -10,6 +10,8 @@ from collections.abc import Callable
 from datetime import datetime
 from typing import Any, Final
 
+from app.schemas.figures import LayersReached
+
 #: Risk level -> (words, shape glyph, CSS class). Worst first.
 LEVELS: Final = {
     "over_limit": ("Over limit", "\u25a0", "lvl-over"),   # filled square
@@ -27,6 +29,11 @@ def um(value: float | None, digits: int = 1) -> str:
 
 def number(value: float | None, digits: int = 1) -> str:
     return "–" if value is None else f"{value:.{digits}f}"
+
+
+def reached(layers: LayersReached) -> str:
+    """Layers reached, said one way in the CLI and on the pages: "A 9 / B 8"."""
+    return f"A {layers.A} / B {layers.B}"
 
 
 def probability(value: float | None) -> str:
@@ -106,5 +113,5 @@ FILTERS: Final[dict[str, Callable[..., Any]]] = {
     "um": um, "number": number, "probability": probability, "when": when,
     "level_words": level_words, "level_shape": level_shape, "level_class": level_class,
     "status_words": status_words, "rule_words": rule_words, "first_sentence": first_sentence,
-    "missing": missing, "audit_details": audit_details,
+    "missing": missing, "audit_details": audit_details, "reached": reached,
 }

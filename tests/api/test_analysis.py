@@ -15,7 +15,7 @@ from app.services import analysis_data, analysis_ftb, imports
 from tests.factories import T0, client, grid, make_keys, make_panel, make_product
 
 TOOLS = ("T1", "T2", "T3")
-HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+HEADER = "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
 
 
 def _scenario(db, *, flip: str, biased: tuple[str, str], bias: tuple[float, float],
@@ -53,7 +53,7 @@ def _scenario(db, *, flip: str, biased: tuple[str, str], bias: tuple[float, floa
                     when = T0 + timedelta(days=lot + 2 * layer, hours=8 * (side == "B"),
                                           minutes=p)
                     for (x, y), a, b in zip(pts, dx, dy, strict=True):
-                        lines.append(f"{serial},{layer},{side},tool,{tool},{when.isoformat()},"
+                        lines.append(f"{serial},{layer},{side},facing_side,{tool},{when.isoformat()},"
                                      f"{x},{y},{a:.4f},{b:.4f}\n")
     imports.import_csv(db=db, stream=io.BytesIO("".join(lines).encode()), name="s.csv",
                        principal_label="test")
@@ -66,19 +66,19 @@ def test_fingerprints_recover_a_side_b_bias_in_the_tool_frame(db):
     r = client(db).get("/api/v1/analysis/fingerprints?product=FP&by_layer=false",
                        headers=k.headers("engineer"))
     assert r.status_code == 200, r.text
-    rows = {(x["tool"], x["side"]): x for x in r.json()["rows"]}
+    rows = {(x["exposure_tool"], x["side"]): x for x in r.json()["rows"]}
     t2b = rows["T2", "B"]
     # Seeded scenario with a known bias (Tx 1, Ty 2 um in T2's own frame on side B of a flip-x
     # product): recovered within the 95 % t interval, positive in the tool frame.
-    for term, truth in zip(t2b["terms_tool_frame"][:2], (1.0, 2.0), strict=True):
+    for term, truth in zip(t2b["terms_facing_side"][:2], (1.0, 2.0), strict=True):
         assert abs(term["mean"] - truth) <= term["half_width"]
         assert term["mean"] > 0
     # Other tools on side B hold zero.
     for tool in ("T1", "T3"):
-        for term in rows[tool, "B"]["terms_tool_frame"][:2]:
+        for term in rows[tool, "B"]["terms_facing_side"][:2]:
             assert abs(term["mean"]) <= 1.5 * term["half_width"]
     # What-if: taking T2's bias out lowers the FTB spread.
-    what_if = {w["tool"]: w for w in r.json()["what_if"]}
+    what_if = {w["exposure_tool"]: w for w in r.json()["what_if"]}
     assert what_if["T2"]["adds_um"] > 0
 
 
@@ -89,7 +89,7 @@ def test_panel_frame_vectors_are_mirrored_and_residuals_add_up(db):
     r = client(db).get(f"/api/v1/analysis/vectors/{serial}/B/2", headers=k.headers("engineer"))
     assert r.status_code == 200, r.text
     body = r.json()
-    assert body["tool"] == truth[serial, 2, "B"]
+    assert body["exposure_tool"] == truth[serial, 2, "B"]
     s = body["sites"]
     x, y, dx, dy = mirror_sites(np.array([v["x_mm_posted"] for v in s]),
                                 np.array([v["y_mm_posted"] for v in s]),

@@ -19,7 +19,7 @@ from app.services import holds, keys, rejections
 from app.store.tables import Fit, Measurement, PanelEstimate, RejectedUpload, SiteSet
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
-HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um"
+HEADER = "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um"
 
 
 def _good() -> dict:
@@ -77,15 +77,17 @@ BOTH_WAYS = {
     "every site off the panel": (_all_off_panel, 422, "outside"),
     "time without zone": (_set("measured_at", "2026-11-02T06:00:00"), 422, "time zone"),
     "time that is not a time": (_set("measured_at", "yesterday"), 422, "time zone"),
-    "tool too long": (_set("tool", "T" * 65), 422, "tool must be"),
-    "tool with a control character": (_set("tool", "EXP\x01"), 422, "control"),
+    "exposure tool too long": (_set("exposure_tool", "T" * 65), 422, "exposure_tool must be"),
+    "exposure tool with a control character": (_set("exposure_tool", "EXP\x01"), 422,
+                                               "control"),
     "serial with NUL": (_set("panel", "P0001\x00"), 422, "NUL"),
     "metrology tool too long": (_set("metrology_tool", "M" * 65), 422, "metrology_tool"),
 }
 
 JSON_ONLY = {
     "no sites": (lambda: _set("sites", [])(), 422, "at least one site"),
-    "missing field": (lambda: {k: v for k, v in _good().items() if k != "tool"}, 422, "tool"),
+    "missing field": (lambda: {k: v for k, v in _good().items() if k != "exposure_tool"}, 422,
+                      "exposure_tool"),
     "not JSON": (lambda: b"{panel: P0001", 422, "JSON"),
     "layer beyond any integer": (lambda: _set("layer", 2**63)(), 422, "layer"),
 }
@@ -95,7 +97,10 @@ def _csv(body: dict) -> bytes:
     extra = [k for k in ("metrology_tool", "recipe", "artwork", "shift") if k in body]
     lines = [",".join([HEADER, *extra])]
     for s in body["sites"]:
-        head = [str(body[k]) for k in ("panel", "layer", "side", "frame", "tool", "measured_at")]
+        head = [
+            str(body[k])
+            for k in ("panel", "layer", "side", "frame", "exposure_tool", "measured_at")
+        ]
         site = [repr(float(s[k])) for k in ("x_mm", "y_mm", "dx_um", "dy_um")]
         lines.append(",".join(head + site + [str(body[k]) for k in extra]))
     return ("\n".join(lines) + "\n").encode()
@@ -109,7 +114,7 @@ def setup(db):
     c = client(db)
     k = make_keys(db)
     r = c.post("/api/v1/measurements", json=measurement("P0001", 1, "B", (1.0,)),
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 201
     admin = keys.authenticate(db=db, authorization=f"Bearer {k['admin']}")
     hold = holds.place(db=db, serial="P0009", data=HoldCreate(reason="test scrap"),
@@ -129,12 +134,12 @@ def _snapshot(db) -> tuple:
 
 def _post_json(c, k, raw: bytes):
     return c.post("/api/v1/measurements", content=raw,
-                  headers={**k.headers("tool"), "Content-Type": "application/json"})
+                  headers={**k.headers("uploader"), "Content-Type": "application/json"})
 
 
 def _post_csv(c, k, raw: bytes):
     return c.post("/api/v1/imports", files={"file": ("one.csv", io.BytesIO(raw), "text/csv")},
-                  headers=k.headers("tool"))
+                  headers=k.headers("uploader"))
 
 
 def _refused(db, r, status: int, needle: str, before: tuple, kept_before: int) -> dict:
@@ -147,7 +152,7 @@ def _refused(db, r, status: int, needle: str, before: tuple, kept_before: int) -
     assert _snapshot(db) == before
     assert rejections.count(db=db) == kept_before + 1
     kept = rejections.latest(db=db)
-    assert kept.status == status and kept.key_label == "test tool"
+    assert kept.status == status and kept.key_label == "test uploader"
     return problem
 
 
@@ -213,7 +218,7 @@ def test_body_over_the_size_limit(setup, monkeypatch):
 def test_unknown_product_when_registering_a_panel(setup):
     db, c, k = setup
     r = c.post("/api/v1/panels", json={"serial": "P9", "product": "NOPE", "lot": "L"},
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 404
     assert "NOPE" in r.json()["detail"]
     with db.transaction() as s:

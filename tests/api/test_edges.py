@@ -23,9 +23,9 @@ def setup(db):
 
 
 def _post(c, k, body):
-    r = c.post("/api/v1/measurements", json=body, headers=k.headers("tool"))
+    r = c.post("/api/v1/measurements", json=body, headers=k.headers("uploader"))
     assert r.status_code == 201, r.text
-    return r.json()["state"]
+    return r.json()["panel_after"]
 
 
 def test_flip_x_ftb_worked_by_hand(setup):
@@ -34,10 +34,10 @@ def test_flip_x_ftb_worked_by_hand(setup):
     # turns dy: side B is (+3, -5) in the panel frame, so FTB = A - B = (0, +10) everywhere.
     _post(c, k, measurement("X1", 1, "A", (3.0, 5.0)))
     state = _post(c, k, measurement("X1", 1, "B", (3.0, 5.0)))
-    for point in state["ftb"]["points"]:
+    for point in state["ftb_current_points"]:
         assert point["dx_um"] == pytest.approx(0.0, abs=1e-9)
         assert point["dy_um"] == pytest.approx(10.0, abs=1e-9)
-    assert state["ftb"]["worst_um"] == pytest.approx(10.0, abs=1e-9)
+    assert state["ftb_current_um"] == pytest.approx(10.0, abs=1e-9)
 
 
 def test_cumulative_ftb_counts_layers_by_number_with_gaps(setup):
@@ -46,7 +46,7 @@ def test_cumulative_ftb_counts_layers_by_number_with_gaps(setup):
         _post(c, k, measurement("P1", layer, "A", (5.0,)))
     _post(c, k, measurement("P1", 3, "B", (5.0,)))  # B layers 1 and 2 not measured yet
     stack = c.get("/api/v1/panels/P1/stack", headers=k.headers("engineer")).json()
-    cumulative = {(layer["side"], layer["layer"]): layer["cumulative_ftb_worst_um"]
+    cumulative = {(layer["side"], layer["layer"]): layer["ftb_through_layer_um"]
                   for layer in stack["layers"]}
     # Worked by hand: A adds +5 a layer; B's layer 3, +5 in its tool frame, is -5 in the panel
     # frame (flip y), so layers 1..3 give 15 - (-5) = 20.
@@ -64,12 +64,14 @@ def test_unexpected_failure_is_a_problem_document_and_the_upload_is_kept(setup, 
 
     monkeypatch.setattr(measurements, "accept", broken)
     c = TestClient(create_app(db), raise_server_exceptions=False)
-    r = c.post("/api/v1/measurements", json=measurement("P1", 1, "A"), headers=k.headers("tool"))
+    r = c.post(
+        "/api/v1/measurements", json=measurement("P1", 1, "A"), headers=k.headers("uploader")
+    )
     assert r.status_code == 500
     assert r.headers["content-type"].startswith("application/problem+json")
     assert "disk on fire" not in r.text  # internals stay in the log
     kept = rejections.latest(db=db)
-    assert kept.status == 500 and kept.key_label == "test tool" and kept.body
+    assert kept.status == 500 and kept.key_label == "test uploader" and kept.body
 
 
 def _anonymous_refusals(c, k) -> int:
@@ -99,10 +101,10 @@ def test_import_onto_a_scrapped_panel_is_refused(setup):
     hold = c.get("/api/v1/holds", headers=k.headers("supervisor")).json()["holds"][0]
     c.post(f"/api/v1/holds/{hold['id']}/disposition",
            json={"action": "scrap", "note": "beyond rework"}, headers=k.headers("supervisor"))
-    text = ("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
-            "P1,2,A,tool,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")
+    text = ("panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+            "P1,2,A,facing_side,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")
     r = c.post("/api/v1/imports", files={"file": ("m.csv", io.BytesIO(text.encode()), "text/csv")},
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 422
     assert "scrapped" in r.json()["errors"][0]["message"]
 
@@ -118,7 +120,7 @@ def test_a_completed_panel_released_from_hold_is_complete_again(setup):
         == "complete"
     r = c.post("/api/v1/panels/C1/holds", json={"reason": "visual check"},
                headers=k.headers("engineer"))
-    assert state["forecast"]["remaining"] == {"A": [], "B": []}
+    assert state["forecast"]["layers_to_come"] == {"A": [], "B": []}
     c.post(f"/api/v1/holds/{r.json()['id']}/disposition",
            json={"action": "release", "note": "visual check passed"},
            headers=k.headers("supervisor"))

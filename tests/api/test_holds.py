@@ -24,9 +24,9 @@ def setup(db):
 def _post(c, k, serial, layer, side, tx, **kw):
     r = c.post("/api/v1/measurements",
                json=measurement(serial, layer, side, (tx,), frame="panel", **kw),
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 201, r.text
-    return r.json()["state"]
+    return r.json()["panel_after"]
 
 
 def _drift(c, k, serial, layers, step=3.0, start=1):
@@ -49,11 +49,11 @@ def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(se
     make_panel(db, "DRIFT")
     make_panel(db, "ALT", lot="LOT2")
     state = _drift(c, k, "DRIFT", 6)
-    assert state["ftb"]["worst_um"] == pytest.approx(36.0, abs=1e-6)
+    assert state["ftb_current_um"] == pytest.approx(36.0, abs=1e-6)
     assert state["risk"] == "at_risk"
-    assert state["forecast"]["p_exceed"] >= 0.20
-    assert state["forecast"]["remaining"] == {"A": list(range(7, 13)), "B": list(range(7, 13))}
-    assert any("um/layer" in r and "Side A" in r for r in state["reasons"])
+    assert state["forecast"]["p_final_over_limit"] >= 0.20
+    assert state["forecast"]["layers_to_come"] == {"A": list(range(7, 13)), "B": list(range(7, 13))}
+    assert any("um a layer" in r and "Side A" in r for r in state["reasons"])
     for layer in range(1, 7):
         sign = 1 if layer % 2 else -1
         _post(c, k, "ALT", layer, "A", 3.0 * sign)
@@ -61,13 +61,13 @@ def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(se
     # Alternating errors cancel: never held; it may stay watched by hysteresis (its P entered
     # watch early on and has not fallen below the leave threshold), never at risk.
     assert alt["risk"] in ("clear", "watch"), alt["reasons"]
-    assert alt["forecast"]["p_exceed"] < 0.10
+    assert alt["forecast"]["p_final_over_limit"] < 0.10
     holds = _open(c, k)
     assert [h["panel"] for h in holds] == ["DRIFT"]  # one hold, not one per measurement
     h = holds[0]
-    assert h["kind"] == "automatic" and h["rule"] == "p_exceed_at_risk"
+    assert h["kind"] == "automatic" and h["rule"] == "forecast_at_risk"
     assert h["held_by"] == "stackledger (automatic)"
-    assert "um/layer" in h["reason"]
+    assert "um a layer" in h["reason"]
     panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
     assert panel["status"] == "on_hold"
 
@@ -91,7 +91,7 @@ def test_released_panel_is_not_held_again_unless_worse(setup):
     _drift(c, k, "DRIFT", 1, start=5)
     (again,) = _open(c, k)
     assert again["id"] != hold["id"]
-    assert again["ftb_now_um"] > hold["ftb_now_um"]
+    assert again["ftb_current_um"] > hold["ftb_current_um"]
 
 
 def test_over_limit_l2l_is_held(setup):
@@ -112,7 +112,7 @@ def test_disposition_roles_notes_and_audit(setup):
     url = f"/api/v1/holds/{hold['id']}/disposition"
     body = {"action": "scrap", "note": "FTB beyond recovery per QP-9"}
     assert c.post(url, json=body, headers=k.headers("engineer")).status_code == 403
-    assert c.post(url, json=body, headers=k.headers("tool")).status_code == 403
+    assert c.post(url, json=body, headers=k.headers("uploader")).status_code == 403
     assert c.post(url, json={"action": "scrap"}, headers=k.headers("supervisor")).status_code \
         == 422
     assert c.post(url, json={"action": "bin", "note": "x" * 5},
@@ -124,7 +124,7 @@ def test_disposition_roles_notes_and_audit(setup):
     panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
     assert panel["status"] == "scrapped"
     refused = c.post("/api/v1/measurements", json=measurement("DRIFT", 5, "A"),
-                     headers=k.headers("tool"))
+                     headers=k.headers("uploader"))
     assert refused.status_code == 422 and "scrapped" in refused.json()["detail"]
     entries = audit.list_for(db=db, subject="DRIFT")
     actions = [e["action"] for e in entries]
@@ -155,19 +155,19 @@ def test_rework_sets_the_named_layer_aside_and_its_remeasurement_restores_it(set
     # Worked by hand: A gives +3 a layer over 4 layers, B -3 over its remaining 3: FTB
     # 12 - (-9) = 21 um, down from 24; layer 4 B is missing again and still to come.
     after = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
-    assert before["ftb"]["worst_um"] == pytest.approx(24.0, abs=5e-4)
-    assert after["ftb"]["worst_um"] == pytest.approx(21.0, abs=5e-4)
-    assert after["layers"] == {"A": [1, 2, 3, 4], "B": [1, 2, 3]}
-    assert 4 in after["forecast"]["remaining"]["B"] and after["status"] == "in_process"
-    assert after["forecast"]["p_exceed"] != before["forecast"]["p_exceed"]
+    assert before["ftb_current_um"] == pytest.approx(24.0, abs=5e-4)
+    assert after["ftb_current_um"] == pytest.approx(21.0, abs=5e-4)
+    assert after["layers_reached"] == {"A": 4, "B": 3}
+    assert 4 in after["forecast"]["layers_to_come"]["B"] and after["status"] == "in_process"
+    assert after["forecast"]["p_final_over_limit"] != before["forecast"]["p_final_over_limit"]
     assert _open(c, k) == []  # not held again in the same step
     entry = audit.list_for(db=db, subject="DRIFT")[-1]
     assert entry["action"] == "disposition_rework"
     assert entry["details"]["rework"]["layer"] == 4
     assert entry["details"]["after_rework"]["ftb_worst_um"] == pytest.approx(21.0, abs=1e-9)
     state = _post(c, k, "DRIFT", 4, "B", 3.0, minutes=3000)  # reworked: now back toward zero
-    assert state["ftb"]["worst_um"] == pytest.approx(18.0, abs=5e-4)
-    assert state["layers"]["B"] == [1, 2, 3, 4]
+    assert state["ftb_current_um"] == pytest.approx(18.0, abs=5e-4)
+    assert state["layers_reached"]["B"] == 4 and state["missing_layers"]["B"] == []
     stack = c.get("/api/v1/panels/DRIFT/stack", headers=k.headers("engineer")).json()
     assert len([layer for layer in stack["layers"] if layer["side"] == "B"]) == 4
 
@@ -195,7 +195,7 @@ def test_manual_hold_needs_engineer_and_reason(setup):
     make_panel(db, "CALM")
     url = "/api/v1/panels/CALM/holds"
     assert c.post(url, json={"reason": "suspect lamination"},
-                  headers=k.headers("tool")).status_code == 403
+                  headers=k.headers("uploader")).status_code == 403
     assert c.post(url, json={}, headers=k.headers("engineer")).status_code == 422
     r = c.post(url, json={"reason": "suspect lamination"}, headers=k.headers("engineer"))
     assert r.status_code == 201
@@ -228,11 +228,11 @@ def test_hold_list_csv_is_safe_and_carries_the_caution(setup):
     assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
     rows = list(csv.reader(io.StringIO(r.text)))
     header, row = rows[0], rows[1]
-    assert header[:3] == ["severity", "risk", "panel"]
+    assert header[:4] == ["severity", "risk", "rule", "panel"]
     record = dict(zip(header, row, strict=True))
     assert record["reason"] == '\'=HYPERLINK("http://x","y")'
     assert record["lot"] == "'=LOT(1)"
-    assert ',0.0,' in r.text and record["ftb_now_um"] == "0.0"  # a number, not quoted
+    assert ',0.0,' in r.text and record["ftb_current_um"] == "0.0"  # a number, not quoted
     assert r.headers["stackledger-caution"] == CAUTION
     assert c.get("/api/v1/holds", headers=k.headers("supervisor")).json()["caution"] == CAUTION
 
@@ -249,7 +249,7 @@ def test_hold_list_csv_reads_with_defaults_and_a_bare_cr_starts_no_formula(setup
     # pandas.read_csv with its defaults: the header is the first line, one row per hold.
     frame = pd.read_csv(io.StringIO(text))
     assert list(frame.columns) == list(COLUMNS) and sorted(frame["panel"]) == ["CR1", "CR2", "CR3"]
-    assert frame["ftb_now_um"].dtype.kind == "f"
+    assert frame["ftb_current_um"].dtype.kind == "f"
     # A reader that ends a row at every bare CR or LF sees no line that starts a formula
     # (OWASP "CSV Injection": = + - @ tab CR at the start of a cell).
     for line in re.split(r"\r\n|\r|\n", text):
@@ -297,7 +297,7 @@ def test_forecast_reports_its_monte_carlo_error_and_the_product_its_leave_thresh
     state = _drift(c, k, "DRIFT", 3)
     fc = state["forecast"]
     assert fc["samples"] >= 500
-    p, se = fc["p_exceed"], fc["p_exceed_stderr"]
+    p, se = fc["p_final_over_limit"], fc["p_final_over_limit_stderr"]
     # Binomial standard error, floored at 1 / n (app.overlay.probability); answers round
     # probabilities to 4 decimals.
     assert se == pytest.approx(max((p * (1 - p)) ** 0.5 / fc["samples"] ** 0.5,

@@ -20,14 +20,14 @@ def setup(db):
 def test_register_repeat_and_conflict(setup):
     _db, c, k = setup
     body = {"serial": "P1", "product": "TESTPROD", "lot": "LOT1"}
-    first = c.post("/api/v1/panels", json=body, headers=k.headers("tool"))
+    first = c.post("/api/v1/panels", json=body, headers=k.headers("uploader"))
     assert first.status_code == 201
     assert first.json()["status"] == "in_process" and first.json()["forecast"] is None
-    assert c.post("/api/v1/panels", json=body, headers=k.headers("tool")).status_code == 200
-    r = c.post("/api/v1/panels", json={**body, "lot": "LOT2"}, headers=k.headers("tool"))
+    assert c.post("/api/v1/panels", json=body, headers=k.headers("uploader")).status_code == 200
+    r = c.post("/api/v1/panels", json={**body, "lot": "LOT2"}, headers=k.headers("uploader"))
     assert r.status_code == 409 and "P1" in r.json()["detail"]
     r = c.post("/api/v1/panels", json={"serial": "P2", "product": "OTHER", "lot": "LOT1"},
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 409 and "another product" in r.json()["detail"]
     assert c.get("/api/v1/panels/NOPE", headers=k.headers("engineer")).status_code == 404
 
@@ -35,12 +35,15 @@ def test_register_repeat_and_conflict(setup):
 def test_list_filters_sorting_and_pagination(setup):
     _db, c, k = setup
     for i in range(7):
-        c.post("/api/v1/panels", json={"serial": f"P{i}", "product": "TESTPROD",
-                                       "lot": "LA" if i < 4 else "LB"}, headers=k.headers("tool"))
+        c.post(
+            "/api/v1/panels",
+            json={"serial": f"P{i}", "product": "TESTPROD", "lot": "LA" if i < 4 else "LB"},
+            headers=k.headers("uploader"),
+        )
         c.post("/api/v1/measurements", json=measurement(f"P{i}", 1, "A", (float(i % 4),)),
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     c.post("/api/v1/panels", json={"serial": "Q0", "product": "OTHER", "lot": "LC"},
-           headers=k.headers("tool"))
+           headers=k.headers("uploader"))
     h = k.headers("engineer")
     all_ = c.get("/api/v1/panels?limit=3", headers=h).json()
     serials = [p["serial"] for p in all_["items"]]
@@ -56,11 +59,11 @@ def test_list_filters_sorting_and_pagination(setup):
     assert [p["serial"] for p in other] == ["Q0"]
     # Sorted by FTB, worst first, paged two at a time; ties by serial, same direction.
     got = []
-    url = "/api/v1/panels?sort=ftb&order=desc&limit=2"
+    url = "/api/v1/panels?sort=ftb_current&order=desc&limit=2"
     while url:
         page = c.get(url, headers=h).json()
-        got += [(p["ftb"]["worst_um"], p["serial"]) for p in page["items"]]
-        url = f"/api/v1/panels?sort=ftb&order=desc&limit=2&cursor={page['next_cursor']}" \
+        got += [(p["ftb_current_um"], p["serial"]) for p in page["items"]]
+        url = f"/api/v1/panels?sort=ftb_current&order=desc&limit=2&cursor={page['next_cursor']}" \
             if page["next_cursor"] else None
     # Q0 has no measurement yet: FTB 0, listed with the other zeros.
     assert [s for _, s in got] == ["P3", "P6", "P2", "P5", "P1", "Q0", "P4", "P0"]
@@ -73,7 +76,7 @@ def test_list_filters_sorting_and_pagination(setup):
 
 def test_product_defaults_and_repeat(setup):
     _db, c, k = setup
-    p = c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).json()
+    p = c.get("/api/v1/products/TESTPROD", headers=k.headers("uploader")).json()
     assert len(p["check_points_mm"]) == 25
     xs = sorted({x for x, _ in p["check_points_mm"]})
     assert xs[0] == pytest.approx(-0.45 * 510) and xs[-1] == pytest.approx(0.45 * 510)
@@ -93,15 +96,17 @@ def test_risk_filter_finds_each_level(setup):
     make_product(db, code="LEVELS", p_at_risk=0.5)  # watch from 0.05 up to 0.5
     for serial in ("NONE", "WATCH", "RISK", "OVER"):
         c.post("/api/v1/panels", json={"serial": serial, "product": "LEVELS", "lot": "LV"},
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
 
     def post(serial: str, layer: int, side: str, tx: float) -> None:
-        r = c.post("/api/v1/measurements",
-                   json=measurement(serial, layer, side, (tx,), frame="panel"),
-                   headers=k.headers("tool"))
+        r = c.post(
+            "/api/v1/measurements",
+            json=measurement(serial, layer, side, (tx,), frame="panel"),
+            headers=k.headers("uploader"),
+        )
         assert r.status_code == 201, r.text
 
-    post("WATCH", 1, "A", 1.0)  # nothing known yet: the prior alone gives P(exceed) ~ 0.1-0.2
+    post("WATCH", 1, "A", 1.0)  # nothing known yet: the prior alone gives P ~ 0.1-0.2
     for layer in range(1, 6):  # 4 um a layer each way: FTB 40 um after 5 pairs
         post("RISK", layer, "A", 4.0)
         post("RISK", layer, "B", -4.0)
@@ -117,7 +122,7 @@ def test_risk_filter_finds_each_level(setup):
 def test_product_list_by_code(setup):
     db, c, k = setup
     make_product(db, code="ALPHA", layers_per_side=4)
-    r = c.get("/api/v1/products", headers=k.headers("tool"))
+    r = c.get("/api/v1/products", headers=k.headers("uploader"))
     assert r.status_code == 200
     items = r.json()["items"]
     assert [p["code"] for p in items] == ["ALPHA", "OTHER", "TESTPROD"]

@@ -15,13 +15,13 @@ from app.services import intake
 from app.store.tables import Measurement, Panel, Product
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
-HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um"
+HEADER = "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um"
 
 
 def _csv(*ms: dict) -> bytes:
     lines = [HEADER]
     for m in ms:
-        head = ",".join(str(m[k]) for k in ("panel", "layer", "side", "frame", "tool",
+        head = ",".join(str(m[k]) for k in ("panel", "layer", "side", "frame", "exposure_tool",
                                               "measured_at"))
         lines += [f"{head},{s['x_mm']!r},{s['y_mm']!r},{s['dx_um']!r},{s['dy_um']!r}"
                   for s in m["sites"]]
@@ -29,7 +29,7 @@ def _csv(*ms: dict) -> bytes:
 
 
 def _import(c, k, data: bytes, key: str | None = None):
-    headers = k.headers("tool") | ({"Idempotency-Key": key} if key else {})
+    headers = k.headers("uploader") | ({"Idempotency-Key": key} if key else {})
     return c.post("/api/v1/imports", files={"file": ("f.csv", io.BytesIO(data), "text/csv")},
                   headers=headers)
 
@@ -58,11 +58,11 @@ def test_the_same_data_posted_or_imported_gives_the_same_forecast(setup):
     _db, c, k = setup
     # P1 completes its stack and becomes the product's history for the panels after it.
     for m in _layers("P1", 1):
-        assert c.post("/api/v1/measurements", json=m, headers=k.headers("tool")).status_code \
+        assert c.post("/api/v1/measurements", json=m, headers=k.headers("uploader")).status_code \
             == 201
     first_three = [{**m, "panel": "P2"} for m in _layers("X", 7)[:3]]
     for m in first_three:
-        r = c.post("/api/v1/measurements", json=m, headers=k.headers("tool"))
+        r = c.post("/api/v1/measurements", json=m, headers=k.headers("uploader"))
         assert r.status_code == 201
     posted = c.get("/api/v1/panels/P2", headers=k.headers("engineer")).json()
     # The same three measurements again, as a file: they supersede the posted ones with the
@@ -73,7 +73,10 @@ def test_the_same_data_posted_or_imported_gives_the_same_forecast(setup):
     imported = c.get("/api/v1/panels/P2", headers=k.headers("engineer")).json()
     assert posted["forecast"] is not None
     assert imported["forecast"] == posted["forecast"]
-    assert imported["ftb"] == posted["ftb"] and imported["reasons"] == posted["reasons"]
+    assert (
+        imported["ftb_current_points"] == posted["ftb_current_points"]
+        and imported["reasons"] == posted["reasons"]
+    )
 
 
 def test_a_file_is_applied_once_and_a_key_cannot_be_reused(setup):
@@ -111,7 +114,7 @@ def test_the_write_lock_is_not_held_while_a_batch_is_prepared(setup, monkeypatch
     assert entered.wait(30)
     try:
         posted = c.post("/api/v1/measurements", json=_layers("P1", 6)[0],
-                        headers=k.headers("tool"))
+                        headers=k.headers("uploader"))
         assert posted.status_code == 201  # answered while the import is still being prepared
     finally:
         release.set()
@@ -128,21 +131,21 @@ def test_completing_a_panel_bumps_the_history_revision(setup):
 
     before = revision()
     ms = _layers("P1", 8)
-    c.post("/api/v1/measurements", json=ms[0], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=ms[0], headers=k.headers("uploader"))
     assert revision() == before + 1  # the product's first write sets its history cut-off
     for m in ms[1:-1]:
-        c.post("/api/v1/measurements", json=m, headers=k.headers("tool"))
+        c.post("/api/v1/measurements", json=m, headers=k.headers("uploader"))
     assert revision() == before + 1  # in process, cut-off fresh: what is learned is the same
-    c.post("/api/v1/measurements", json=ms[-1], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=ms[-1], headers=k.headers("uploader"))
     assert revision() == before + 2
     with db.reading() as s:
         assert s.get(Panel, "P1").completed_at is not None
     c.post("/api/v1/measurements", json={**ms[0], "measured_at": "2026-11-03T06:00:00Z"},
-           headers=k.headers("tool"))  # a re-measurement of a completed panel
+           headers=k.headers("uploader"))  # a re-measurement of a completed panel
     assert revision() == before + 3
     misses = db.history.misses
-    c.post("/api/v1/measurements", json=_layers("P2", 9)[0], headers=k.headers("tool"))
-    c.post("/api/v1/measurements", json=_layers("P2", 9)[1], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=_layers("P2", 9)[0], headers=k.headers("uploader"))
+    c.post("/api/v1/measurements", json=_layers("P2", 9)[1], headers=k.headers("uploader"))
     assert db.history.misses == misses + 1  # learned once for the new revision, then reused
 
 
@@ -154,12 +157,12 @@ def test_a_stale_cut_off_is_refreshed_by_the_next_write(setup, monkeypatch):
         with db.reading() as s:
             return s.scalars(select(Product.history_at)).one()
 
-    c.post("/api/v1/measurements", json=_layers("P1", 10)[0], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[0], headers=k.headers("uploader"))
     first = cut_off()
-    c.post("/api/v1/measurements", json=_layers("P1", 10)[1], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[1], headers=k.headers("uploader"))
     assert cut_off() == first
     monkeypatch.setenv("STACKLEDGER_HISTORY_REFRESH_S", "0")
     get_settings.cache_clear()
-    c.post("/api/v1/measurements", json=_layers("P1", 10)[2], headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=_layers("P1", 10)[2], headers=k.headers("uploader"))
     assert cut_off() > first
     get_settings.cache_clear()

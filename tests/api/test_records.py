@@ -78,17 +78,17 @@ def test_rejected_uploads_own_key_and_all_for_admin(db):
     k = make_keys(db)
     c = client(db)
     bad = {"serial": "P/1", "product": "TESTPROD", "lot": "L"}
-    assert c.post("/api/v1/panels", json=bad, headers=k.headers("tool")).status_code == 422
+    assert c.post("/api/v1/panels", json=bad, headers=k.headers("uploader")).status_code == 422
     assert c.post("/api/v1/panels", json=bad, headers=k.headers("engineer")).status_code == 422
     assert c.post("/api/v1/panels", json=bad).status_code == 401
 
-    own = c.get("/api/v1/rejected-uploads", headers=k.headers("tool")).json()["items"]
-    assert [r["key_label"] for r in own] == ["test tool"]
+    own = c.get("/api/v1/rejected-uploads", headers=k.headers("uploader")).json()["items"]
+    assert [r["key_label"] for r in own] == ["test uploader"]
     assert own[0]["endpoint"] == "/api/v1/panels" and own[0]["status"] == 422
     assert json.loads(own[0]["body_start"]) == bad
     assert own[0]["body_bytes"] == len(own[0]["body_start"].encode())
     everyone = c.get("/api/v1/rejected-uploads", headers=k.headers("admin")).json()["items"]
     # an anonymous refusal is counted, never stored
-    assert sorted(r["key_label"] for r in everyone) == sorted(["test tool", "test engineer"])
+    assert sorted(r["key_label"] for r in everyone) == sorted(["test uploader", "test engineer"])
     assert c.get("/api/v1/rejected-uploads", headers=k.headers("supervisor")).json()[
         "items"] == []

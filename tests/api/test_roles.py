@@ -8,7 +8,7 @@ from app.main import create_app
 from app.services import keys
 from tests.factories import client, make_keys, make_panel, make_product, measurement
 
-ALL = {"tool", "engineer", "supervisor", "admin"}
+ALL = {"uploader", "engineer", "supervisor", "admin"}
 READERS = {"engineer", "supervisor", "admin"}
 
 # (method, path, allowed roles, body factory)
@@ -25,9 +25,9 @@ MATRIX = [
     ("GET", "/api/v1/panels/P0001/stack", READERS, None),
     ("GET", "/api/v1/panels/P0001/sites", READERS, None),
     ("POST", "/api/v1/panels/P0001/holds", READERS, lambda: {"reason": "checking the matrix"}),
-    ("POST", "/api/v1/measurements", {"tool", "admin"},
+    ("POST", "/api/v1/measurements", {"uploader", "admin"},
      lambda: measurement("P0001", 1, "A", (1.0,))),
-    ("POST", "/api/v1/imports", {"tool", "admin"}, "csv"),
+    ("POST", "/api/v1/imports", {"uploader", "admin"}, "csv"),
     ("GET", "/api/v1/holds", READERS, None),
     ("GET", "/api/v1/holds.csv", READERS, None),
     ("POST", "/api/v1/holds/{hold}/disposition", {"supervisor", "admin"},
@@ -42,8 +42,8 @@ MATRIX = [
     ("GET", "/api/v1/audit", READERS, None),
     ("GET", "/api/v1/rejected-uploads", ALL, None),
 ]
-CSV = ("panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
-       "P0001,2,A,tool,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")
+CSV = ("panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+       "P0001,2,A,facing_side,EXP-T1,2026-11-02T08:00:00Z,0,0,1,1\n")
 
 
 def _call(c, method, path, role_headers, body):
@@ -96,10 +96,10 @@ def test_revoked_key_is_refused_and_keys_are_stored_hashed(db):
     make_product(db)
     k = make_keys(db)
     c = client(db)
-    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).status_code == 200
-    prefix = k["tool"].split("_")[1]
+    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("uploader")).status_code == 200
+    prefix = k["uploader"].split("_")[1]
     keys.revoke(db=db, prefix=prefix)
-    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).status_code == 401
+    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("uploader")).status_code == 401
     from sqlalchemy import select
 
     from app.store.tables import ApiKey
@@ -116,7 +116,7 @@ def test_metrics_exposition(db):
     k = make_keys(db)
     c = client(db)
     c.get("/api/v1/health")
-    r = c.get("/metrics", headers=k.headers("tool"))
+    r = c.get("/metrics", headers=k.headers("uploader"))
     assert r.status_code == 200
     assert "# TYPE stackledger_http_requests_total counter" in r.text
     assert "stackledger_open_holds 0" in r.text

@@ -16,7 +16,7 @@ def test_residuals_match_an_independent_least_squares_fit(db):
     for side in ("A", "B"):
         r = c.post("/api/v1/measurements", json=measurement("P0001", 1, side, terms, noise=0.8,
                                                             seed=7),
-                   headers=k.headers("tool"))
+                   headers=k.headers("uploader"))
         assert r.status_code == 201, r.text
     body = c.get("/api/v1/panels/P0001/sites", headers=k.headers("engineer")).json()
     assert [(m["side"], m["layer"]) for m in body["layers"]] == [("A", 1), ("B", 1)]
@@ -48,7 +48,7 @@ def test_sites_filters_and_unknown_panel(db):
     make_panel(db)
     k = make_keys(db)
     c = client(db)
-    c.post("/api/v1/measurements", json=measurement("P0001", 1, "A"), headers=k.headers("tool"))
+    c.post("/api/v1/measurements", json=measurement("P0001", 1, "A"), headers=k.headers("uploader"))
     h = k.headers("engineer")
     assert c.get("/api/v1/panels/P0001/sites?side=B", headers=h).json()["layers"] == []
     assert len(c.get("/api/v1/panels/P0001/sites?side=A&layer=1", headers=h).json()[

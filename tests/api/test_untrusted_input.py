@@ -36,7 +36,8 @@ NUL_REQUESTS = [
     ("POST", "/api/v1/panels", {"serial": "A\x002", "product": "TESTPROD", "lot": "x"},
      "/serial"),
     ("POST", "/api/v1/panels/A-1/holds", {"reason": "see\x00here"}, "/reason"),
-    ("POST", "/api/v1/measurements", {**measurement("A-1", 1, "A"), "tool": "T\x00"}, "/tool"),
+    ("POST", "/api/v1/measurements", {**measurement("A-1", 1, "A"), "exposure_tool": "T\x00"},
+     "/exposure_tool"),
     ("POST", "/api/v1/measurements", {**measurement("A-1", 1, "A"), "panel": "A-1\x00"},
      "/panel"),
 ]
@@ -82,12 +83,22 @@ def test_control_problem(value, problem):
 
 
 PANEL_CURSORS = [
-    ("serial", [None, "A-1"]), ("serial", [{"a": 1}, "A-1"]), ("serial", [1, "A-1"]),
-    ("serial", ["a\x00", "A-1"]), ("serial", ["A-1", None]), ("serial", ["A-1"]),
-    ("updated", ["not a date", "A-1"]), ("updated", ["2026-01-01T00:00:00", "A-1"]),
-    ("ftb", [True, "A-1"]), ("ftb", ["1.5", "A-1"]), ("p_exceed", [[1], "A-1"]),
-    ("ftb", b'[1e400, "A-1"]'), ("ftb", b'[NaN, "A-1"]'), ("serial", b"\xff\xfe"),
-    ("serial", {"a": 1}), ("serial", b"[" * 5000),
+    ("serial", [None, "A-1"]),
+    ("serial", [{"a": 1}, "A-1"]),
+    ("serial", [1, "A-1"]),
+    ("serial", ["a\x00", "A-1"]),
+    ("serial", ["A-1", None]),
+    ("serial", ["A-1"]),
+    ("updated", ["not a date", "A-1"]),
+    ("updated", ["2026-01-01T00:00:00", "A-1"]),
+    ("ftb_current", [True, "A-1"]),
+    ("ftb_current", ["1.5", "A-1"]),
+    ("p_final_over_limit", [[1], "A-1"]),
+    ("ftb_current", b'[1e400, "A-1"]'),
+    ("ftb_current", b'[NaN, "A-1"]'),
+    ("serial", b"\xff\xfe"),
+    ("serial", {"a": 1}),
+    ("serial", b"[" * 5000),
 ]
 
 

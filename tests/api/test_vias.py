@@ -57,13 +57,13 @@ def test_via_settings_round_trip_and_repeat(setup):
     assert got["pad_width_um"] is None
     assert _create(c, k, vias=VIAS).status_code == 200  # identical repeat
     assert _create(c, k, vias={**VIAS, "pad_diameter_um": 70.0}).status_code == 409
-    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("tool")).json()["vias"] == got
+    assert c.get("/api/v1/products/TESTPROD", headers=k.headers("uploader")).json()["vias"] == got
 
 
 def _post(c, k, serial, layer, side, tx, noise=0.0):
     r = c.post("/api/v1/measurements",
                json=measurement(serial, layer, side, (tx,), frame="panel", noise=noise),
-               headers=k.headers("tool"))
+               headers=k.headers("uploader"))
     assert r.status_code == 201, r.text
     return r.json()
 
@@ -74,7 +74,7 @@ def test_capture_margin_judges_l2l_when_the_product_has_vias(setup):
     make_panel(db, "V1")
     # 14 um: over the 12 um L2L limit but inside layer 2's 15 um capture margin.
     _post(c, k, "V1", 1, "A", 0.0)
-    state = _post(c, k, "V1", 2, "A", 14.0)["state"]
+    state = _post(c, k, "V1", 2, "A", 14.0)["panel_after"]
     assert state["risk"] != "over_limit", state["reasons"]
     stack = c.get("/api/v1/panels/V1/stack", headers=k.headers("engineer")).json()
     layer2 = next(x for x in stack["layers"] if (x["side"], x["layer"]) == ("A", 2))
@@ -92,7 +92,7 @@ def test_capture_margin_judges_l2l_when_the_product_has_vias(setup):
     assert via["extra_ohm"] == pytest.approx(1.68e-8 * 14e-6 / (65e-6 * 15e-6), rel=1e-9)
     assert via["relative"] == pytest.approx(via["extra_ohm"] / via["chain_ohm"])
     # 18 um on layer 3: 3 um past its pad edge.
-    state = _post(c, k, "V1", 3, "A", 18.0)["state"]
+    state = _post(c, k, "V1", 3, "A", 18.0)["panel_after"]
     assert state["risk"] == "over_limit"
     assert any(r.startswith("Via on layer 3 side A can miss its pad by 3.0 um")
                and "capture margin of 15.0 um" in r for r in state["reasons"]), state["reasons"]

@@ -156,7 +156,7 @@ def test_supervisor_releases_scraps_and_reworks(page: Any, demo_server: DemoServ
     _dispose(page, demo_server, targets[0], "release", "Reviewed with QA, build on")
     _dispose(page, demo_server, targets[1], "scrap", "FTB beyond recovery per QP-7")
     # Rework the last layer measured on side A (a rework names a layer in force).
-    top_a = max(panels.get(db=demo_server.db, serial=targets[2]).layers.A)
+    top_a = panels.get(db=demo_server.db, serial=targets[2]).layers_reached.A
     _dispose(page, demo_server, targets[2], "rework", f"Strip and redo side A layer {top_a}",
              rework=("A", top_a))
     page.goto(f"{demo_server.url}/audit")

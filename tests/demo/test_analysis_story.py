@@ -25,13 +25,15 @@ def test_the_analysis_tells_the_demo_story(db):
         # dated by the ramp extrapolated back to the fleet's level).
         report = analysis_drift.tool_drift(db=db, filters=everything)
         top = report.alarms[:3]
-        assert {a.tool for a in top} == {BIASED_TOOL}, top
+        assert {a.exposure_tool for a in top} == {BIASED_TOOL}, top
         assert {a.term for a in top} <= {"Tx", "Ty"}
-        exp2 = [a for a in report.alarms if a.tool == BIASED_TOOL and a.term in ("Tx", "Ty")]
+        exp2 = [
+            a for a in report.alarms if a.exposure_tool == BIASED_TOOL and a.term in ("Tx", "Ty")
+        ]
         assert {a.side for a in exp2} == {"A", "B"}
         for a in exp2:
             assert abs(a.change_start - BIAS_ONSET) <= timedelta(days=4), a
-            assert a.size_tool_frame > 0  # the bias is + in x and y of EXP-2's own frame
+            assert a.size_facing_side > 0  # the bias is + in x and y of EXP-2's own frame
         ramps = [a for a in exp2 if a.change_kind == "ramp"]
         assert ramps and all(0.5 * BIAS_RATE_UM_PER_DAY[0] < a.change_rate
                              < 1.5 * BIAS_RATE_UM_PER_DAY[0] for a in ramps)
@@ -39,19 +41,19 @@ def test_the_analysis_tells_the_demo_story(db):
         # Shares: EXP-2 first for the lot that ran both sides there, and for the product.
         shares = analysis_ftb.ftb_shares(db=db, filters=everything)
         by_lot = {x.lot: x for x in shares.by_lot}
-        assert by_lot[lot].by_tool[0].group == BIASED_TOOL
-        assert by_lot[lot].by_tool[0].share > 0.8
-        assert shares.by_tool[0].group == BIASED_TOOL
+        assert by_lot[lot].by_exposure_tool[0].group == BIASED_TOOL
+        assert by_lot[lot].by_exposure_tool[0].share > 0.8
+        assert shares.by_exposure_tool[0].group == BIASED_TOOL
 
         # Fingerprints: the bias shows in EXP-2's own frame (+Tx, +Ty on both sides), beyond
         # its interval and beyond the rest of the fleet; and EXP-2 adds most to FTB.
         fp = analysis_tools.tool_fingerprints(db=db, filters=everything, by_layer=False)
-        for row in (r for r in fp.rows if r.tool == BIASED_TOOL):
-            for term in row.terms_tool_frame[:2]:
+        for row in (r for r in fp.rows if r.exposure_tool == BIASED_TOOL):
+            for term in row.terms_facing_side[:2]:
                 assert term.mean > term.half_width > 0
-            for diff in row.difference_tool_frame[:2]:
+            for diff in row.difference_facing_side[:2]:
                 assert diff.mean > diff.half_width
-        assert fp.what_if[0].tool == BIASED_TOOL and fp.what_if[0].adds_um > 1.0
+        assert fp.what_if[0].exposure_tool == BIASED_TOOL and fp.what_if[0].adds_um > 1.0
 
         # Lots: every panel counted once, and the forecast share within limit is a share.
         lots = analysis_lots.lot_summary(db=db, filters=everything)

@@ -79,7 +79,7 @@ def test_committed_sample_data_is_fresh(scenario: tuple[Path, ScenarioSummary]) 
 def test_headers(scenario: tuple[Path, ScenarioSummary]) -> None:
     out_dir = scenario[0]
     first_line = (out_dir / "measurements.csv").read_text().split("\n", 1)[0]
-    assert first_line == "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um"
+    assert first_line == "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um"
     assert (out_dir / "panels.csv").read_text().split("\n", 1)[0] == "serial,product,lot"
 
 
@@ -106,9 +106,9 @@ def test_counts(scenario: tuple[Path, ScenarioSummary], panels: Rows, measuremen
     assert len({p["serial"] for p in panels}) == len(panels)
     assert len({p["lot"] for p in panels}) == summary.lots == 8
     assert len({p["product"] for p in panels}) == summary.products == 2
-    assert {r["tool"] for r in measurements} == set(simulator.TOOLS)
+    assert {r["exposure_tool"] for r in measurements} == set(simulator.TOOLS)
     assert len(measurements) == summary.rows < 120_000
-    assert {r["frame"] for r in measurements} == {"tool", "panel"}
+    assert {r["frame"] for r in measurements} == {"facing_side", "panel"}
 
 
 def test_measurements_contiguous_sorted_and_complete(measurements: Rows, panels: Rows) -> None:
@@ -122,7 +122,7 @@ def test_measurements_contiguous_sorted_and_complete(measurements: Rows, panels:
     sites_per_product = defaultdict(set)
     reached: dict[tuple[str, str], list[int]] = defaultdict(list)
     for block in blocks:
-        assert len({(r["measured_at"], r["tool"], r["frame"]) for r in block}) == 1
+        assert len({(r["measured_at"], r["exposure_tool"], r["frame"]) for r in block}) == 1
         sites_per_product[product_of[block[0]["panel"]]].add(len(block))
         reached[block[0]["panel"], block[0]["side"]].append(int(block[0]["layer"]))
     assert {p: len(n) for p, n in sites_per_product.items()} == {"C55": 1, "C75": 1}
@@ -143,7 +143,7 @@ def test_side_a_measured_before_side_b(measurements: Rows) -> None:
 def _mean_dx_panel_frame(rows: Rows, flip_axis: str) -> float:
     columns = ("x_mm", "y_mm", "dx_um", "dy_um")
     x, y, dx, dy = (np.array([float(r[c]) for r in rows]) for c in columns)
-    if rows[0]["frame"] == "tool":
+    if rows[0]["frame"] == "facing_side":
         x, y, dx, dy = mirror_sites(x, y, dx, dy, side=rows[0]["side"], flip_axis=flip_axis)
     return float(dx.mean())
 
@@ -162,7 +162,7 @@ def test_side_b_is_in_its_tool_frame(
         rows = [r for r in measurements if r["panel"] == serial]
         side_a = [r for r in rows if r["side"] == "A"]
         side_b = [r for r in rows if r["side"] == "B"]
-        assert {r["frame"] for r in side_b} == {"tool"}
+        assert {r["frame"] for r in side_b} == {"facing_side"}
         assert _mean_dx_panel_frame(side_a, "y") > 1.0
         assert _mean_dx_panel_frame(side_b, "y") < -1.0
         assert np.mean([float(r["dx_um"]) for r in side_b]) > 1.0  # as the tool posted it

@@ -180,7 +180,7 @@ def test_one_site_is_translation_with_zero_sigma() -> None:
     assert fit.model == "translation" and fit.fitted == ("Tx", "Ty")
     assert_allclose(fit.terms, [1.5, -2.5, 0, 0, 0, 0, 0, 0], atol=1e-15)
     assert fit.sigma_um == (0.0, 0.0)
-    assert fit.note is not None and "needs at least 3 sites" in fit.note
+    assert fit.note is not None and "6 terms need at least 3 sites" in fit.note
     assert "no residual degrees of freedom" in fit.note
     assert_no_nan(fit)
 
@@ -244,7 +244,7 @@ def test_three_sites_linear_exactly_determined() -> None:
     assert_allclose(fit.terms[:6], TERMS[:6], rtol=1e-9, atol=1e-12)
     assert fit.sigma_um == (0.0, 0.0)
     assert fit.note is not None
-    assert "trapezoid needs at least 4 sites" in fit.note and "no residual degrees" in fit.note
+    assert "8 terms need at least 4 sites" in fit.note and "no residual degrees" in fit.note
 
 
 def test_all_zero_vectors() -> None:
@@ -568,8 +568,8 @@ def test_clustered_sites_are_guarded_down_to_the_noise_level() -> None:
     model, note = notes.pop()
     assert model == "translation"
     assert note is not None
-    assert note.startswith("sites cover too little of the check points for linear")
-    assert note.endswith("fitted translation")
+    assert note.startswith("sites cover too little of the check points for 6 terms")
+    assert note.endswith("fitted 2 terms")
 
 
 @pytest.mark.parametrize("trapezoid", [False, True])
@@ -631,10 +631,10 @@ def test_guard_steps_down_one_model_at_a_time() -> None:
     wide, middle, narrow = grid_fit(230.0), grid_fit(150.0), grid_fit(50.0)
     assert (wide.model, wide.note) == ("trapezoid", None)
     assert middle.model == "linear"
-    assert middle.note is not None and "for trapezoid" in middle.note
+    assert middle.note is not None and "for 8 terms" in middle.note
     assert narrow.model == "translation"
-    assert narrow.note is not None and "for linear" in narrow.note
-    assert "for trapezoid" not in narrow.note  # said once, at the linear step
+    assert narrow.note is not None and "for 6 terms" in narrow.note
+    assert "for 8 terms" not in narrow.note  # said once, at the linear step
     for fit in (wide, middle, narrow):
         assert fit.leverage <= 1.0 + 1e-9
 

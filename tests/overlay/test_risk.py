@@ -100,26 +100,27 @@ def test_levels_are_ordered_by_severity() -> None:
     [
         (0.0, "clear", "clear"),
         (0.049, "clear", "clear"),
-        (0.05, "watch", "p_exceed_watch"),
-        (0.19, "watch", "p_exceed_watch"),
-        (0.20, "at_risk", "p_exceed_at_risk"),
-        (0.9, "at_risk", "p_exceed_at_risk"),
+        (0.05, "watch", "forecast_watch"),
+        (0.19, "watch", "forecast_watch"),
+        (0.20, "at_risk", "forecast_at_risk"),
+        (0.9, "at_risk", "forecast_at_risk"),
     ],
 )
 def test_probability_rules(p: float, level: str, rule: str) -> None:
     result = run(fc=forecast(p))
     assert (result.level, result.rule) == (level, rule)
     assert result.reasons
-    assert f"P(exceed) = {p:.2f}" in " ".join(result.reasons)
+    said = "less than a 1 % chance" if p < 0.01 else f"a {p:.0%} chance".replace("%", " %")
+    assert f"{said} of ending over" in " ".join(result.reasons)
 
 
 @pytest.mark.parametrize(
     ("ftb", "level", "rule"),
     [
         (41.9, "clear", "clear"),
-        (42.0, "watch", "ftb_near_limit"),  # 70 % of 60 um
-        (60.0, "watch", "ftb_near_limit"),  # at the limit is not over it
-        (60.1, "over_limit", "ftb_over_limit"),
+        (42.0, "watch", "current_ftb_near_limit"),  # 70 % of 60 um
+        (60.0, "watch", "current_ftb_near_limit"),  # at the limit is not over it
+        (60.1, "over_limit", "current_ftb_over_limit"),
     ],
 )
 def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
@@ -129,7 +130,7 @@ def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
     text = " ".join(result.reasons)
     assert f"{ftb:.1f} um" in text
     assert "60 um" in text
-    if rule == "ftb_near_limit":
+    if rule == "current_ftb_near_limit":
         assert "70%" in text
         assert "(229.5, -231.8) mm" in text
 
@@ -137,7 +138,7 @@ def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
 def test_watch_fraction_is_a_setting() -> None:
     loose = RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, watch_fraction=0.8)
     assert run(ftb=45.0, thresholds=loose).level == "clear"
-    assert run(ftb=48.0, thresholds=loose).rule == "ftb_near_limit"
+    assert run(ftb=48.0, thresholds=loose).rule == "current_ftb_near_limit"
 
 
 def test_l2l_over_limit_on_either_side() -> None:
@@ -175,8 +176,9 @@ def test_l2l_limit_allows_for_the_fits_standard_error() -> None:
     assert run(interfaces=[face(13.0, se=0.6)]).level == "clear"  # 13 - 1.2 < 12
     result = run(interfaces=[face(13.0, se=0.4)])  # 13 - 0.8 > 12
     assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
-    assert "Side B layer 5: L2L worst 13.0 um at (229.5, 231.8) mm" in result.reasons[0]
-    assert "fit standard error 0.4 um" in result.reasons[0]
+    assert "Side B layer 5 sits 13.0 um off the layer beneath at (229.5, 231.8) mm: 1.0 um over" \
+        in result.reasons[0]
+    assert "the fit is good to 0.4 um there" in result.reasons[0]
 
 
 def test_via_off_pad_uses_the_capture_margin() -> None:
@@ -190,7 +192,7 @@ def test_via_off_pad_uses_the_capture_margin() -> None:
     reason = result.reasons[0]
     assert reason.startswith("Via on layer 5 side B can miss its pad by 3.2 um at (229.5, 231.8)")
     assert "capture margin of 12.5 um" in reason
-    assert "90% of the via bottom" in reason and "1.1 x the contact resistance" in reason
+    assert "90% of the via bottom" in reason and "about 1.1 x the usual" in reason
     # Past the margin by less than 2 standard errors: not over, but the miss probability speaks.
     near = run(interfaces=[face(13.0, se=0.4, margin=12.5, p_miss=0.6)])
     assert (near.level, near.rule) == ("at_risk", "via_miss_at_risk")
@@ -208,33 +210,34 @@ def test_via_miss_probability_levels(p_miss: float, level: str, rule: str) -> No
     result = run(interfaces=[face(10.0, margin=12.5, p_miss=p_miss)])
     assert (result.level, result.rule) == (level, rule)
     if rule != "clear":
-        assert f"probability {p_miss:.2f} at (229.5, 231.8) mm" in result.reasons[0]
+        chance = f"a {p_miss:.0%} chance".replace("%", " %")
+        assert f"{chance} of missing part of their pad at (229.5, 231.8) mm" in result.reasons[0]
         assert "capture margin of 12.5 um" in result.reasons[0]
 
 
 def test_reasons_carry_the_figures() -> None:
     result = run(ftb=36.0, fc=forecast(0.64))
-    assert (result.level, result.rule) == ("at_risk", "p_exceed_at_risk")
+    assert (result.level, result.rule) == ("at_risk", "forecast_at_risk")
     side_a = next(r for r in result.reasons if r.startswith("Side A"))
     side_b = next(r for r in result.reasons if r.startswith("Side B"))
     for sentence, direction in ((side_a, "+x"), (side_b, "-x")):
-        assert "3.0 um/layer" in sentence
+        assert "3.0 um a layer" in sentence
         assert f"toward {direction}" in sentence
         assert "6 layers" in sentence
-        assert "1.0 um/layer" in sentence  # what each remaining layer is expected to add
+        assert "expected to add 1.0 um" in sentence  # what each layer to come adds
     projection = result.reasons[-1]
-    assert "6 layers remain on each side" in projection
-    assert "67 um" in projection
-    assert "95% band 38-96 um" in projection
-    assert "limit of 60 um" in projection
-    assert "P(exceed) = 0.64" in projection
+    assert "With 6 layers to come on each side" in projection
+    assert "expected near 67 um" in projection
+    assert "95 % band 38-96 um" in projection
+    assert "the 60 um limit" in projection
+    assert "a 64 % chance of ending over it" in projection
 
 
 def test_direction_off_axis_and_no_drift() -> None:
     fc = forecast(0.3, trend_a=trend((2.0, 2.0)), trend_b=trend((0.0, 0.0), expected=(0.0, 0.0)))
     text = " ".join(run(fc=fc).reasons)
-    assert "2.8 um/layer toward 45 deg from +x" in text
-    assert "Side B shows no net drift" in text
+    assert "2.8 um a layer toward 45 deg from +x" in text
+    assert "Side B has not moved one way" in text
     fc = forecast(0.3, trend_a=trend((0.1, -2.5)))
     assert "toward -y" in " ".join(run(fc=fc).reasons)
 
@@ -242,7 +245,7 @@ def test_direction_off_axis_and_no_drift() -> None:
 def test_missing_and_uneven_remaining_layers_are_named() -> None:
     fc = forecast(0.3, trend_a=trend((3.0, 0.0), observed=5, missing=(3,)), trend_b=trend((0, 0)))
     projection = run(fc=fc).reasons[-1]
-    assert "7 layers remain on side A and 6 on side B" in projection
+    assert "7 layers to come on side A and 6 on side B" in projection
     assert "side A layer 3" in projection
 
 
@@ -251,8 +254,8 @@ def test_every_cause_is_listed() -> None:
     assert (result.level, result.rule) == ("over_limit", "l2l_over_limit")
     text = " ".join(result.reasons)
     assert "Side B layer 5" in text  # the L2L cause
-    assert "Side A drifts 3.0 um/layer toward +x" in text  # the drift cause
-    assert "P(exceed) = 0.64" in text  # the forecast
+    assert "Side A has moved 3.0 um a layer toward +x" in text  # the drift cause
+    assert "a 64 % chance of ending over it" in text  # the forecast
     assert "75% of the 60 um limit" in text  # the near-limit cause
 
 
@@ -263,8 +266,8 @@ def test_no_forecast_and_complete_stack() -> None:
     done = trend((3.0, 0.0), observed=12)
     fc = forecast(1.0, final=72.0, band=(72.0, 72.0), trend_a=done, trend_b=done)
     result = run(ftb=72.0, fc=fc)
-    assert (result.level, result.rule) == ("over_limit", "ftb_over_limit")
-    assert any("complete" in r and "72.0 um" in r for r in result.reasons)
+    assert (result.level, result.rule) == ("over_limit", "current_ftb_over_limit")
+    assert any("Every layer is on" in r and "72.0 um" in r for r in result.reasons)
 
 
 @pytest.mark.parametrize(
@@ -291,10 +294,10 @@ def test_bad_figures_are_refused() -> None:
 @pytest.mark.parametrize(
     ("observed_a", "observed_b", "phrase"),
     [
-        (11, 11, "1 layer remains on each side"),
-        (10, 10, "2 layers remain on each side"),
-        (11, 9, "1 layer remains on side A and 3 on side B"),
-        (9, 11, "3 layers remain on side A and 1 on side B"),
+        (11, 11, "1 layer to come on each side"),
+        (10, 10, "2 layers to come on each side"),
+        (11, 9, "1 layer to come on side A and 3 on side B"),
+        (9, 11, "3 layers to come on side A and 1 on side B"),
     ],
 )
 def test_remaining_layers_phrase_agrees_in_number(
@@ -304,7 +307,7 @@ def test_remaining_layers_phrase_agrees_in_number(
                   trend_b=trend((-3.0, 0.0), observed=observed_b))
     text = " ".join(run(fc=fc).reasons)
     assert phrase in text
-    assert "1 layer remain " not in text
+    assert "1 layers" not in text
 
 
 @pytest.mark.parametrize(
@@ -331,7 +334,7 @@ def test_hysteresis_enter_and_leave(p, previous, level):
     )
     assert out.level == level
     if previous == "at_risk" and level == "at_risk" and p < 0.20:
-        assert any("for leaving" in r for r in out.reasons)
+        assert any("so it stays at risk (it leaves below 10 %" in r for r in out.reasons)
 
 
 def test_hysteresis_stops_flapping_about_a_threshold():

@@ -14,7 +14,7 @@ def _held_panel(db, k, serial="P0001", terms=(30.0,)):
     """A panel whose side A drifts 30 um in x at layer 1: over the 12 um L2L limit, held."""
     make_panel(db, serial)
     r = client(db).post("/api/v1/measurements", json=measurement(serial, 1, "A", terms),
-                        headers=k.headers("tool"))
+                        headers=k.headers("uploader"))
     assert r.status_code == 201, r.text
     (hold,) = holds.for_panel(db=db, serial=serial)
     assert hold.state == "open"
@@ -119,7 +119,7 @@ def test_panel_page_shows_charts_layers_and_trail(db):
     arrows = ftb_map[ftb_map.index('<g class="arrows"'):]
     assert arrows[:arrows.index("</g>")].count("<line x1") == 25  # the default 5 x 5 points
     assert 'id="map-measured"' in page and 'id="map-residual"' in page
-    assert "panel = tool" in page
+    assert "panel = facing side" in page
     assert "panel register" in page and "hold" in page
     assert c.get("/panels/NOPE").status_code == 404
     assert c.get("/panels/P0001?map=C9").status_code == 422
@@ -132,7 +132,7 @@ def test_board_lists_open_holds_worst_first_and_filters(db):
     _held_panel(db, k, "P0001", terms=(20.0,))
     make_panel(db, "P0009", product="OTHER", lot="LOT9")
     client(db).post("/api/v1/measurements", json=measurement("P0009", 1, "A", (25.0,)),
-                    headers=k.headers("tool"))
+                    headers=k.headers("uploader"))
     c = page_client(db)
     sign_in(c, k["supervisor"])
     board = c.get("/board").text

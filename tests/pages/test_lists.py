@@ -17,10 +17,10 @@ def test_panels_filter_and_sort(db):
     for i, tx in enumerate((2.0, 9.0, 5.0), 1):
         make_panel(db, f"P000{i}", lot="LOTA" if i < 3 else "LOTB")
         api.post("/api/v1/measurements", json=measurement(f"P000{i}", 1, "A", (tx,)),
-                 headers=k.headers("tool"))
+                 headers=k.headers("uploader"))
     c = page_client(db)
     sign_in(c, k["engineer"])
-    assert ROWS.findall(c.get("/panels?sort=ftb&order=desc").text) == ["P0002", "P0003",
+    assert ROWS.findall(c.get("/panels?sort=ftb_current&order=desc").text) == ["P0002", "P0003",
                                                                        "P0001"]
     assert ROWS.findall(c.get("/panels?sort=serial&order=asc").text) == ["P0001", "P0002",
                                                                          "P0003"]
@@ -39,18 +39,18 @@ def test_rejected_uploads_page_shows_own_or_all(db):
     k = make_keys(db)
     api = client(db)
     bad = {"serial": "B/AD", "product": "TESTPROD", "lot": "L"}
-    api.post("/api/v1/panels", json=bad, headers=k.headers("tool"))
+    api.post("/api/v1/panels", json=bad, headers=k.headers("uploader"))
     api.post("/api/v1/panels", json=bad, headers=k.headers("engineer"))
     tool = page_client(db)
-    sign_in(tool, k["tool"])
+    sign_in(tool, k["uploader"])
     text = tool.get("/rejected-uploads").text
-    assert "test tool" in text and "test engineer" not in text and "B/AD" in text
+    assert "test uploader" in text and "test engineer" not in text and "B/AD" in text
     assert tool.get("/audit").status_code == 403  # a tool key does not read the audit trail
     assert tool.get("/board").status_code == 403
     admin = page_client(db)
     sign_in(admin, k["admin"])
     text = admin.get("/rejected-uploads").text
-    assert "test tool" in text and "test engineer" in text
+    assert "test uploader" in text and "test engineer" in text
 
 
 def test_audit_page_filters(db):

@@ -72,7 +72,7 @@ def test_revoking_the_key_ends_its_session_at_once(db):
 
 def test_session_tokens_are_signed_and_expire(db):
     k = make_keys(db)
-    token, session = sessions.sign_in(db=db, secret=SECRET, key=k["tool"])
+    token, session = sessions.sign_in(db=db, secret=SECRET, key=k["uploader"])
     assert sessions.resume(db=db, secret=SECRET, token=token).principal == session.principal
     with pytest.raises(Unauthenticated, match="not one this server signed"):
         sessions.resume(db=db, secret=b"another secret", token=token)

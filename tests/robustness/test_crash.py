@@ -27,7 +27,7 @@ from app.store.tables import Measurement, SiteSet
 from tests.factories import grid, make_panel, make_product
 from tests.robustness.live import ROOT, store_url
 
-HEADER = "panel,layer,side,frame,tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
+HEADER = "panel,layer,side,frame,exposure_tool,measured_at,x_mm,y_mm,dx_um,dy_um\n"
 PANELS = 30
 LAYERS = 3
 KILLS = 5
@@ -46,7 +46,7 @@ def _write_csv(path: Path, rng: np.random.Generator) -> tuple[int, int]:
             for side in ("A", "B"):
                 at = (t0 + timedelta(minutes=n)).isoformat()
                 d = rng.normal(0, 3, (len(pts), 2))
-                lines += [f"K{p:03d},{layer},{side},tool,EXP-T1,{at},{x},{y},{a:.4f},{b:.4f}"
+                lines += [f"K{p:03d},{layer},{side},facing_side,EXP-T1,{at},{x},{y},{a:.4f},{b:.4f}"
                           for (x, y), (a, b) in zip(pts, d, strict=True)]
                 n += 1
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
@@ -122,7 +122,7 @@ def test_killed_imports_leave_all_or_nothing(db, tmp_path):
         serial = make_panel(db, f"NEXT{len(outcomes)}")
         small = tmp_path / f"next{len(outcomes)}.csv"
         small.write_text(HEADER + "".join(
-            f"{serial},1,A,tool,EXP-T1,2026-11-03T06:00:00Z,{x},{y},1,1\n"
+            f"{serial},1,A,facing_side,EXP-T1,2026-11-03T06:00:00Z,{x},{y},1,1\n"
             for x in (-200, 0, 200) for y in (-200, 0, 200)), encoding="utf-8")
         imports.import_path(db=db, path=small, label="crash test")
         assert _counts(db)[0] == after[0] + 1

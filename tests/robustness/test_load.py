@@ -69,7 +69,7 @@ def test_sixteen_clients_lose_nothing_and_store_nothing_twice(db):
     make_product(db)
     for p in range(PANELS):
         make_panel(db, f"L{p:02d}")
-    token = make_keys(db)["tool"]
+    token = make_keys(db)["uploader"]
     plan = _plan(np.random.default_rng(SEED))
     answers: dict[str, set[str]] = {}
     statuses: list[int] = []

@@ -22,7 +22,7 @@ from tests.factories import make_panel, make_product, measurement, product_data
 def test_parallel_posts_all_land(db):
     make_product(db)
     serials = [make_panel(db, f"P{i}") for i in range(4)]
-    key, _ = keys.create(db=db, role="tool", label="t")
+    key, _ = keys.create(db=db, role="uploader", label="t")
     who = keys.authenticate(db=db, authorization=f"Bearer {key}")
     assert isinstance(who, Principal)
     jobs = [MeasurementCreate(**measurement(s, layer, side, (1.0,)))
@@ -104,7 +104,7 @@ def test_identical_products_race_to_one_201(db):
 def test_one_idempotency_key_with_different_bodies_on_different_panels(db):
     make_product(db)
     serials = [make_panel(db, f"IK{i}") for i in range(6)]
-    key, _ = keys.create(db=db, role="tool", label="t")
+    key, _ = keys.create(db=db, role="uploader", label="t")
     who = keys.authenticate(db=db, authorization=f"Bearer {key}")
 
     def post(i: int):

@@ -8,7 +8,8 @@ from datetime import UTC, datetime
 import numpy as np
 import pytest
 
-from app.schemas.panels import FtbRead, PanelRead, SidesInt, StackLayerRead, StackRead
+from app.schemas.figures import LayersReached
+from app.schemas.panels import PanelRead, SidesInt, StackLayerRead, StackRead
 from app.views import charts
 
 NS = {"s": "http://www.w3.org/2000/svg"}
@@ -17,29 +18,47 @@ NS = {"s": "http://www.w3.org/2000/svg"}
 def _layer(side: str, k: int, cumulative: float, position: tuple[float, float]
            ) -> StackLayerRead:
     return StackLayerRead(
-        side=side, layer=k, measurement_id="m", tool="T", measured_at=datetime(2026, 1, 1,
-                                                                                tzinfo=UTC),
-        model="linear", note=None, tx_um=0, ty_um=0, sx_ppm=0, sy_ppm=0, rotation_urad=0,
-        nonorthogonality_urad=0, kx_um_per_mm2=0, ky_um_per_mm2=0, sigma_x_um=1, sigma_y_um=1,
-        l2l_worst_um=1, cumulative_ftb_worst_um=cumulative, side_position_um=position)
+        side=side,
+        layer=k,
+        measurement_id="m",
+        exposure_tool="T",
+        measured_at=datetime(2026, 1, 1, tzinfo=UTC),
+        model="6_terms",
+        note=None,
+        tx_um=0,
+        ty_um=0,
+        sx_ppm=0,
+        sy_ppm=0,
+        rotation_urad=0,
+        nonorthogonality_urad=0,
+        kx_um_per_mm2=0,
+        ky_um_per_mm2=0,
+        sigma_x_um=1,
+        sigma_y_um=1,
+        l2l_worst_um=1,
+        ftb_through_layer_um=cumulative,
+        side_position_um=position,
+    )
 
 
 def _panel(worst: float, forecast: dict | None) -> PanelRead:
     return PanelRead(
         serial="P", product="X", lot="L", status="on_hold",
-        layers=SidesInt(A=[1, 2, 3], B=[1, 2]), missing_layers=SidesInt(A=[], B=[]),
-        ftb=FtbRead(worst_um=worst, worst_at_mm=(0, 0), points=[]), l2l_worst_um=1,
-        risk="at_risk", reasons=["r"], forecast=forecast, updated_at=datetime.now(UTC))
+        layers_reached=LayersReached(A=3, B=2), missing_layers=SidesInt(A=[], B=[]),
+        ftb_current_um=worst, ftb_current_at_mm=(0, 0), ftb_current_points=[], l2l_worst_um=1,
+        risk="at_risk", risk_rule="forecast_at_risk", reasons=["r"], forecast=forecast,
+        updated_at=datetime.now(UTC))
 
 
 def test_stack_walk_has_one_point_per_layer_on_a_linear_axis_with_the_limit():
     cumulative = [4.0, 11.0, 19.5]
-    stack = StackRead(serial="P", worst_at_mm=(0, 0), layers=[
+    stack = StackRead(serial="P", ftb_current_at_mm=(0, 0), layers=[
         *[_layer("A", k, cumulative[k - 1], (3.0 * k, 4.0 * k)) for k in (1, 2, 3)],
         *[_layer("B", k, cumulative[k - 1], (-1.0 * k, 0.0)) for k in (1, 2)]],
         residual_sigma_um=(1, 1), linear_worst_case_um=0, rss_um=0)
-    panel = _panel(19.5, {"final_worst_um": 48.0, "band_um": (35.0, 61.0), "p_exceed": 0.3,
-                          "remaining": {"A": [4, 5, 6], "B": [3, 4, 5, 6]}, "method": "m"})
+    panel = _panel(19.5, {"ftb_final_forecast_um": 48.0, "ftb_final_band_um": (35.0, 61.0),
+                          "p_final_over_limit": 0.3,
+                          "layers_to_come": {"A": [4, 5, 6], "B": [3, 4, 5, 6]}, "method": "m"})
     svg = ET.fromstring(str(charts.stack_walk_svg(stack, panel, ftb_limit_um=55.0,
                                                   layers_per_side=6)))
     points = svg.findall(".//s:circle[@class='ftb-point']", NS)

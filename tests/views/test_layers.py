@@ -19,7 +19,7 @@ def test_tool_frame_row_gives_back_the_terms_the_tool_posted(db, flip):
     posted = (4.0, -3.0, 0.005, -0.002, 0.003, 0.001)  # tool frame, um and um/mm
     for side in ("A", "B"):
         assert c.post("/api/v1/measurements", json=measurement("P0001", 1, side, posted),
-                      headers=k.headers("tool")).status_code == 201
+                      headers=k.headers("uploader")).status_code == 201
     rows = layer_rows(panels.stack(db=db, serial="P0001").layers, flip_axis=flip)
     # The posted sites are exact (no noise), so the fit in the tool frame is the posted terms
     # (docs/conventions.md, reported units: 1 um/mm = 1000 ppm = 1000 urad).

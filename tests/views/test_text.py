@@ -25,6 +25,6 @@ def test_probability_is_never_a_flat_zero_or_one():
 
 def test_first_sentence_cuts_at_a_word():
     assert text.first_sentence("Short one. Second.") == "Short one."
-    long = "Side A drifts 2.3 um/layer toward 327 deg from +x (+1.9 um in x, -1.2 um in y)"
+    long = "Side A has moved 2.3 um a layer toward 327 deg from +x (+1.9 um in x, -1.2 um in y)"
     cut = text.first_sentence(long, 40)
     assert cut.endswith(" …") and len(cut) <= 42 and long.startswith(cut[:-2])

@@ -36,15 +36,22 @@ Format = Literal["json", "csv", "parquet"]
 
 def _filters(
     product: str,
-    tool: str | None = None,
+    exposure_tool: str | None = None,
     side: Literal["A", "B"] | None = None,
     layer: Annotated[int | None, QueryParam(ge=1, le=64)] = None,
     lot: str | None = None,
     start: Annotated[datetime | None, QueryParam(alias="from")] = None,
     end: Annotated[datetime | None, QueryParam(alias="to")] = None,
 ) -> AnalysisFilter:
-    return AnalysisFilter(product=product, tool=tool, side=side, layer=layer, lot=lot,
-                          start=start, end=end)
+    return AnalysisFilter(
+        product=product,
+        exposure_tool=exposure_tool,
+        side=side,
+        layer=layer,
+        lot=lot,
+        start=start,
+        end=end,
+    )
 
 
 Filters = Annotated[AnalysisFilter, Depends(_filters)]

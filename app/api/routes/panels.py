@@ -6,6 +6,7 @@ from fastapi import APIRouter, Query, Response
 
 from app.api.deps import DbDep, PlaceHold, ReadPanels, RegisterPanel
 from app.api.problems import PROBLEM_RESPONSES
+from app.schemas import codes
 from app.schemas.holds import HoldCreate, HoldRead
 from app.schemas.panels import PanelCreate, PanelPage, PanelRead, PanelStatus, RiskLevel, StackRead
 from app.services import holds, panels
@@ -30,9 +31,11 @@ def list_panels(
     _: ReadPanels,
     product: str | None = None,
     lot: str | None = None,
-    status: PanelStatus | None = None,
-    risk: RiskLevel | None = None,
-    sort: Literal["serial", "ftb", "p_exceed", "updated"] = "serial",
+    status: Annotated[PanelStatus | None, Query(**codes.explained(
+        "Only panels with this status.", codes.PANEL_STATUSES))] = None,
+    risk: Annotated[RiskLevel | None, Query(**codes.explained(
+        "Only panels at this risk level.", codes.RISK_LEVELS))] = None,
+    sort: Literal["serial", "ftb_current", "p_final_over_limit", "updated"] = "serial",
     order: Literal["asc", "desc"] = "asc",
     limit: Annotated[int, Query(ge=1, le=500)] = 50,
     cursor: str | None = None,
