@@ -123,7 +123,8 @@ def serve(
 
 @cli.command("panel")
 def panel(serial: str, database: DatabaseOption = None) -> None:
-    """Print one panel's state."""
+    """Print one panel: status, risk level, layers reached, current FTB, worst L2L, the final
+    FTB forecast and the reasons (words and codes: docs/glossary.md)."""
     from app.services import panels
 
     try:

@@ -34,7 +34,8 @@ def holds_command(
     state: Annotated[str, typer.Option(help="open or closed")] = "open",
     database: DatabaseOption = None,
 ) -> None:
-    """The hold list for the shift start (closed holds with their disposition)."""
+    """The hold list for the shift start, worst first then oldest (closed holds with their
+    disposition). Risk levels, rules and columns are explained in docs/glossary.md."""
     from app.reports import print_holds
     from app.services import holds
     from app.services.hold_list import holds_csv

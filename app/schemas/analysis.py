@@ -223,5 +223,6 @@ class SiteVectors(BaseModel):
     exposure_tool: str
     frame: str
     measured_at: datetime
-    model: str
+    model: str = Field(description="The terms the layer's fit used: 8_terms, 6_terms or "
+                       "2_terms (docs/glossary.md).")
     sites: list[SiteVector]

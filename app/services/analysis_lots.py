@@ -19,6 +19,7 @@ from sqlalchemy import func, select
 from app.db import Database
 from app.errors import FieldError, NotFound
 from app.overlay.model import evaluate
+from app.schemas import codes
 from app.schemas.analysis import (
     AnalysisFilter,
     LotReport,
@@ -145,4 +146,4 @@ def site_vectors(*, db: Database, panel: str, side: str, layer: int) -> SiteVect
         ]
         return SiteVectors(panel=panel, side=m.side, layer=m.layer,
                            exposure_tool=m.exposure_tool, frame=m.frame, measured_at=m.measured_at,
-                           model=fit.model, sites=vectors)
+                           model=codes.FIT_MODEL_NAMES.get(fit.model, fit.model), sites=vectors)
