@@ -81,7 +81,7 @@ def fingerprint_page(request: Request, db: DbDep, user: User, product: Text = ""
                 info=info, report=report, tool=picked_tool, layer=picked_layer,
                 tools=sorted({r.tool for r in report.rows}), row=row,
                 layers=range(1, info.layers_per_side + 1),
-                terms=term_rows(row) if row else [],
+                terms=term_rows(row, model_terms=info.model_terms) if row else [],
                 maps=_fingerprint_maps(info, row, picked_side) if row else {})
     except DomainError as exc:
         return refused(request, user, exc)

@@ -19,9 +19,7 @@ def product_choice(db: Database, asked: str) -> tuple[list[str], str | None]:
     return codes, asked or (codes[0] if codes else None)
 
 
-def side_choice(asked: str, *, optional: bool = False) -> str | None:
-    if optional and not asked:
-        return None
+def side_choice(asked: str) -> str:
     if asked not in ("A", "B"):
         raise InvalidInput(f"side must be A or B, got '{asked}'",
                            [FieldError("not a side", pointer="query:/side")])

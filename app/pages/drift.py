@@ -34,7 +34,7 @@ def drift_page(request: Request, db: DbDep, user: User, product: Text = "", tool
     try:
         require(user, "analyse")
         codes, chosen = product_choice(db, product)
-        picked = {"tool": tool.strip() or None, "side": side_choice(side, optional=True),
+        picked = {"tool": tool.strip() or None, "side": side_choice(side) if side else None,
                   "term": term_choice(term)}
         context: dict[str, Any] = {"products": codes, "product": chosen, "picked": picked,
                                    "terms": TERM_NAMES, "units": TERM_UNITS, "charts": [],

@@ -3,7 +3,7 @@ level, the FTB histogram against the limit, the forecast yield, links to every p
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated
 
 from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse

@@ -102,7 +102,8 @@ def histogram_svg(values: Sequence[float], *, limit: float, title: str, axis_lab
     x_max = bins[-1].end
     y_step = nice_step(max(b.count for b in bins) or 1, 5)
     y_step = max(1.0, float(math.ceil(y_step)))
-    y_max = y_step * math.ceil((max(b.count for b in bins) or 1) / y_step)
+    # One step of headroom above the tallest bar for its count.
+    y_max = y_step * (math.floor(max(b.count for b in bins) / y_step) + 1)
 
     def x(v: float) -> float:
         return left + width * v / x_max

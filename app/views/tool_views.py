@@ -59,11 +59,13 @@ class TermRow:
         return mean is not None and half is not None and abs(mean) > half
 
 
-def term_rows(row: FingerprintRow) -> list[TermRow]:
-    """The terms table of one fingerprint, in reported units."""
+def term_rows(row: FingerprintRow, *, model_terms: int = 8) -> list[TermRow]:
+    """The terms table of one fingerprint, in reported units (without the trapezoid terms
+    when the product fits six terms: they are zero by construction, not measured)."""
     out = []
-    for own, rest, diff in zip(row.terms_tool_frame, row.rest_tool_frame,
-                               row.difference_tool_frame, strict=True):
+    for own, rest, diff in zip(row.terms_tool_frame[:model_terms],
+                               row.rest_tool_frame[:model_terms],
+                               row.difference_tool_frame[:model_terms], strict=True):
         u = TERM_UNITS[own.term]
         out.append(TermRow(own.term, u.words, u.unit,
                            (u.shown(own.mean), u.shown(own.half_width)),
