@@ -61,7 +61,7 @@ def _fingerprint_maps(product: ProductRead, row: Any, side: str) -> dict[str, An
 
 @router.get("/analysis/fingerprints", response_class=HTMLResponse)
 def fingerprint_page(request: Request, db: DbDep, user: User, product: Text = "",
-                     tool: Text = "", side: Annotated[str, Query(max_length=1)] = "A",
+                     tool: Text = "", side: Annotated[str, Query(max_length=8)] = "A",
                      layer: Annotated[str, Query(max_length=3)] = "") -> HTMLResponse:
     try:
         require(user, "analyse")

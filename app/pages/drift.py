@@ -29,7 +29,7 @@ MOST_CHARTS = 8
 
 @router.get("/analysis/drift", response_class=HTMLResponse)
 def drift_page(request: Request, db: DbDep, user: User, product: Text = "", tool: Text = "",
-               side: Annotated[str, Query(max_length=1)] = "",
+               side: Annotated[str, Query(max_length=8)] = "",
                term: Annotated[str, Query(max_length=2)] = "") -> HTMLResponse:
     try:
         require(user, "analyse")
