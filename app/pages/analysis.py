@@ -55,7 +55,8 @@ def _fingerprint_maps(product: ProductRead, row: Any, side: str) -> dict[str, An
             fingerprint_arrows(figures, product.check_points_mm),
             width_mm=product.panel_width_mm, height_mm=product.panel_height_mm,
             title=f"{row.tool}, side {side}, {layer}: {words}, tool frame",
-            ident=f"fingerprint-{kind}", colour=colour, size_px=400, what=words)
+            ident=f"fingerprint-{kind}", colour=colour, size_px=440, what=words,
+            seen_from=f"side {side}")
     return maps
 
 

@@ -191,12 +191,15 @@ class Arrow:
 
 def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float, title: str,
                    ident: str, colour: str = FTB, size_px: int = 300,
-                   mark: tuple[float, float] | None = None, what: str = "vector") -> Markup:
-    """Arrows over the panel outline with a scale arrow; ``mark`` rings one point (the worst)."""
+                   mark: tuple[float, float] | None = None, what: str = "vector",
+                   seen_from: str = "side A") -> Markup:
+    """Arrows over the panel outline with a scale arrow; ``mark`` rings one point (the worst).
+    ``seen_from`` names the view: side A (the panel frame) or, for a tool frame of side B,
+    side B."""
     pad = 34
     scale_px = (size_px - 2 * pad) / max(width_mm, height_mm)  # px per mm
     w, h = width_mm * scale_px, height_mm * scale_px
-    total_h = int(h + 2 * pad + 34)
+    total_h = int(h + 2 * pad + 48)
     longest = max((math.hypot(a.dx_um, a.dy_um) for a in arrows), default=0.0)
     # The longest arrow is drawn an eighth of the panel's width long.
     px_per_um = (w / 8) / longest if longest > 0 else 1.0
@@ -206,8 +209,6 @@ def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float
             f'<path d="M0,0 L10,5 L0,10 z" fill="{colour}"/></marker></defs>',
             f'<rect class="panel-outline" x="{pad}" y="{pad}" width="{w:.1f}" height="{h:.1f}" '
             f'fill="#fbfbf9" stroke="#4a5562" stroke-width="1.5"/>',
-            f'<text x="{cx:.1f}" y="{pad - 8}" text-anchor="middle" font-size="11">'
-            f"Panel {fmt(width_mm)} × {fmt(height_mm)} mm, from side A, y up</text>",
             f'<g class="arrows" stroke="{colour}" stroke-width="1.6">']
     for a in arrows:
         x0, y0 = cx + a.x_mm * scale_px, cy - a.y_mm * scale_px
@@ -227,7 +228,12 @@ def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float
                 f'<line x1="{pad}" y1="{y_scale:.1f}" x2="{pad + ref * px_per_um:.1f}" '
                 f'y2="{y_scale:.1f}" marker-end="url(#{ident}-head)"/></g>'
                 f'<text x="{pad + ref * px_per_um + 8:.1f}" y="{y_scale + 4:.1f}" '
-                f'font-size="11">{fmt(ref)} µm {escape(what)}</text>')
+                f'font-size="11">{fmt(ref)} µm {escape(what)}</text>'
+                # Below the scale arrow, where no arrow reaches (the top row's arrows may
+                # rise above the outline).
+                f'<text x="{pad}" y="{y_scale + 22:.1f}" '
+                f'font-size="11">Panel {fmt(width_mm)} × {fmt(height_mm)} mm, from '
+                f"{escape(seen_from)}, y up</text>")
     desc = (f"{len(arrows)} arrows; the longest is {fmt(longest)} µm; the scale arrow is "
             f"{fmt(ref)} µm.")
     return svg_document(size_px, total_h, title, desc, body, ident=ident,
