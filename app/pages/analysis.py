@@ -14,7 +14,7 @@ from app.api.deps import DbDep
 from app.errors import DomainError, FieldError, InvalidInput, NotFound
 from app.pages.choices import layer_choice, product_choice, side_choice
 from app.pages.common import User, refused, render, require
-from app.schemas.analysis import AnalysisFilter, FingerprintReport
+from app.schemas.analysis import AnalysisFilter, FingerprintReport, FingerprintRow
 from app.schemas.products import ProductRead
 from app.services import analysis_ftb, analysis_tools, products
 from app.views import charts
@@ -44,7 +44,7 @@ def _tool(report: FingerprintReport, asked: str) -> str | None:
     return tools[0] if tools else None
 
 
-def _fingerprint_maps(product: ProductRead, row: Any, side: str) -> dict[str, Any]:
+def _fingerprint_maps(product: ProductRead, row: FingerprintRow, side: str) -> dict[str, Any]:
     maps = {}
     for kind, figures, colour, words in (
             ("mean", row.terms_tool_frame, charts.SIDE_A if side == "A" else charts.SIDE_B,

@@ -40,14 +40,16 @@ def drift_page(request: Request, db: DbDep, user: User, product: Text = "", tool
                                    "terms": TERM_NAMES, "units": TERM_UNITS, "charts": [],
                                    "tools": [], "report": None}
         if chosen is not None:
-            asked = any(picked.values())
+            # Every chart, so that the choice lists every tool; unless one is asked for, the
+            # page draws those that alarmed.
             report = analysis_drift.tool_drift(db=db, filters=AnalysisFilter(product=chosen),
-                                               all_charts=asked)
+                                               all_charts=True)
+            alarmed = {(a.tool, a.side, a.term) for a in report.alarms}
             wanted = [c for c in report.charts
-                      if all(v is None or getattr(c, k) == v for k, v in picked.items())]
+                      if all(v is None or getattr(c, k) == v for k, v in picked.items())
+                      and (any(picked.values()) or (c.tool, c.side, c.term) in alarmed)]
             context.update(report=report, total=len(wanted),
-                           tools=sorted({c.tool for c in report.charts} | {
-                               a.tool for a in report.alarms}),
+                           tools=sorted({c.tool for c in report.charts}),
                            charts=[_drawn(c) for c in wanted[:MOST_CHARTS]])
     except DomainError as exc:
         return refused(request, user, exc)

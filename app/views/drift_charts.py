@@ -75,7 +75,7 @@ def _line(a: _Axes, pts: Sequence[tuple[float, float]], colour: str, css: str, d
             f'stroke-width="{width}"{dashing}/>')
 
 
-def _frame(chart: DriftChart, shown: list[tuple[float, DriftPoint, tuple[float, ...]]]
+def _frame(shown: list[tuple[float, DriftPoint, tuple[float, ...]]]
            ) -> tuple[_Axes, float]:
     values = [v for _, _, vs in shown for v in vs]
     lo, hi = min(values), max(values)
@@ -106,7 +106,7 @@ def ewma_chart_svg(chart: DriftChart, *, ident: str | None = None) -> Markup:
                             f"{chart.term}", "No subgroup in the window.",
                             ['<text x="10" y="30" font-size="12">No subgroup in the window.'
                              '</text>'], ident=ident, css_class="chart ewma")
-    a, step = _frame(chart, shown)
+    a, step = _frame(shown)
     body: list[str] = []
     for i in range(round((a.y1 - a.y0) / step) + 1):
         yv = a.y0 + i * step

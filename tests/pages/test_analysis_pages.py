@@ -119,3 +119,18 @@ def test_pages_say_so_when_there_is_no_product(db):
     for path in PAGES:
         r = c.get(path)
         assert r.status_code == 200 and "No product is registered yet" in r.text, path
+
+
+def test_drift_page_offers_every_tool_and_draws_the_chosen_chart(db):
+    k = _line(db)
+    c = page_client(db)
+    sign_in(c, k["engineer"])
+    text = c.get("/analysis/drift?product=TESTPROD").text
+    tools = re.search(r'<select id="f-tool".*?</select>', text, re.S).group(0)
+    assert 'value="EXP-T1"' in tools and 'value="EXP-T2"' in tools  # every tool, alarmed or not
+    chosen = c.get("/analysis/drift?product=TESTPROD&tool=EXP-T1&side=A&term=Tx").text
+    assert chosen.count('class="chart ewma"') == 1 and 'id="ewma-exp-t1-a-tx"' in chosen
+    # Three panels in two lots: one subgroup point per lot.
+    assert chosen.count('class="ewma-point') == 2
+    assert c.get("/analysis/drift?product=TESTPROD&tool=EXP-T2&side=A").text.count(
+        'class="chart ewma"') == 0
