@@ -4,12 +4,14 @@ and the weight of each page.
     .venv/bin/python benchmarks/pages.py                      # SQLite and PostgreSQL
     .venv/bin/python benchmarks/pages.py --skip-postgres
 
-1. Page weight and panel page: the demo scenario (sample_data/) loaded through the services.
+1. Page weight, panel page and analysis pages: the demo scenario (sample_data/) loaded
+   through the services.
    Signed in through the sign-in form with the demo supervisor key (fastapi.testclient), each
    page's HTML bytes plus what it loads (the style sheet and the icon): uncached weight. For the
    worst held panel, GET /panels/{serial} (the page) against GET /api/v1/panels/{serial} (its
    JSON) and against the three JSON answers the page draws on (panel, stack, sites): best of
-   --repeat, server side through TestClient, as a ratio.
+   --repeat, server side through TestClient, as a ratio. The analysis and lot pages (tool
+   fingerprints, EWMA charts, drift alarms, FTB shares, lots, one lot): best of --repeat each.
 2. Shift board: a second store grown with copies of the demo's states and holds (the builder of
    benchmarks/holds.py: 10 % of panels with an open hold) to --small, then --large panels. GET
    /board (its first page, 50 holds) best of --repeat at each size; the ratio large / small
@@ -76,6 +78,13 @@ def weight(client: Any, path: str) -> tuple[int, int]:
     return len(html.content), len(html.content) + linked
 
 
+def analysis_pages(lot: str) -> dict[str, str]:
+    """The engineer's analysis pages and the lot pages, on the demo's first product."""
+    return {"lots": "/lots", f"lot {lot}": f"/lots/{lot}",
+            "tool fingerprints": "/analysis/fingerprints", "EWMA charts": "/analysis/drift",
+            "drift alarms": "/analysis/alarms", "FTB shares": "/analysis/shares"}
+
+
 def demo_pages(db: Any, args: argparse.Namespace) -> tuple[dict[str, Any], list, list]:
     t = time.perf_counter()
     demo_keys = load_into(db)
@@ -85,8 +94,10 @@ def demo_pages(db: Any, args: argparse.Namespace) -> tuple[dict[str, Any], list,
     admin = signed_in(db, demo_keys["admin"])
     pages = {"sign-in": "/sign-in", "shift board": "/board", f"panel {held.panel}":
              f"/panels/{held.panel}", "panels": "/panels", "audit trail": "/audit",
-             "refused uploads": "/rejected-uploads"}
+             "refused uploads": "/rejected-uploads", **analysis_pages(held.lot)}
     weights = {name: weight(admin, path) for name, path in pages.items()}
+    analysis_ms = {name: best_ms(client, path, args.repeat)
+                   for name, path in analysis_pages(held.lot).items()}
     bearer = {"Authorization": f"Bearer {demo_keys['engineer']}"}
     from fastapi.testclient import TestClient
 
@@ -104,7 +115,7 @@ def demo_pages(db: Any, args: argparse.Namespace) -> tuple[dict[str, Any], list,
         return 1e3 * best
 
     base = f"/api/v1/panels/{held.panel}"
-    out = {"load_s": load_s, "panel": held.panel, "weights": weights,
+    out = {"load_s": load_s, "panel": held.panel, "weights": weights, "analysis_ms": analysis_ms,
            "page_ms": best_ms(client, f"/panels/{held.panel}", args.repeat),
            "json_ms": json_ms([base]),
            "json3_ms": json_ms([base, f"{base}/stack", f"{base}/sites?side=B&layer="
@@ -136,6 +147,9 @@ def run(backend: str, tmp: Path, args: argparse.Namespace) -> float:
     for name, (html, total) in d["weights"].items():
         print(f"    {name:<26} {html / 1024:6.1f} KiB HTML, {total / 1024:6.1f} KiB in all "
               f"(aim < {WEIGHT_AIM_KB} KB: {'met' if total < WEIGHT_AIM_KB * 1000 else 'NOT met'})")
+    print("  analysis and lot pages, server time (best of --repeat, supervisor):")
+    for name, ms in d["analysis_ms"].items():
+        print(f"    {name:<26} {ms:7.1f} ms")
     print(f"  panel {d['panel']}: page best {d['page_ms']:.1f} ms; JSON panel {d['json_ms']:.1f} ms"
           f" (ratio {d['page_ms'] / d['json_ms']:.1f}); JSON panel + stack + sites "
           f"{d['json3_ms']:.1f} ms (ratio {d['page_ms'] / d['json3_ms']:.1f})")

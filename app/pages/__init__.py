@@ -8,7 +8,7 @@ from pathlib import Path
 from fastapi import Depends, FastAPI
 from fastapi.staticfiles import StaticFiles
 
-from app.pages import auth, board, dispositions, lists, panel
+from app.pages import analysis, auth, board, dispositions, drift, lists, lots, panel
 from app.pages.common import (
     PageInputRefused,
     SignInRequired,
@@ -17,7 +17,8 @@ from app.pages.common import (
     sign_in_redirect,
 )
 
-ROUTERS = (auth.router, board.router, lists.router, panel.router, dispositions.router)
+ROUTERS = (auth.router, board.router, lists.router, panel.router, dispositions.router,
+           lots.router, analysis.router, drift.router)
 
 
 def install(app: FastAPI) -> None:

@@ -38,11 +38,11 @@ def nice_length(value: float) -> float:
     return max(m * power for m in (1, 2, 5) if m * power <= value)
 
 
-def _fmt(v: float) -> str:
+def fmt(v: float) -> str:
     return f"{v:.1f}".rstrip("0").rstrip(".")
 
 
-def _svg(width: int, height: int, title: str, desc: str, body: Iterable[str], *,
+def svg_document(width: int, height: int, title: str, desc: str, body: Iterable[str], *,
          ident: str, css_class: str) -> Markup:
     head = (f'<svg xmlns="http://www.w3.org/2000/svg" class="{css_class}" id="{ident}" '
             f'viewBox="0 0 {width} {height}" width="{width}" height="{height}" role="img" '
@@ -52,7 +52,7 @@ def _svg(width: int, height: int, title: str, desc: str, body: Iterable[str], *,
     return Markup(head + "".join(body) + "</svg>")
 
 
-def _marker(kind: str, x: float, y: float, colour: str, css: str, label: str) -> str:
+def marker(kind: str, x: float, y: float, colour: str, css: str, label: str) -> str:
     tip = f"<title>{escape(label)}</title>"
     if kind == "circle":
         return (f'<circle class="{css}" cx="{x:.1f}" cy="{y:.1f}" r="4.5" fill="{colour}">'
@@ -103,7 +103,7 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
         body.append(f'<line x1="{f.left}" x2="{f.left + f.width}" y1="{f.y(yv):.1f}" '
                     f'y2="{f.y(yv):.1f}" stroke="#e1e4e8"/>'
                     f'<text x="{f.left - 6}" y="{f.y(yv) + 4:.1f}" text-anchor="end" '
-                    f'font-size="11">{_fmt(yv)}</text>')
+                    f'font-size="11">{fmt(yv)}</text>')
     for k in range(0, layers_per_side + 1):
         body.append(f'<text x="{f.x(k):.1f}" y="{f.top + f.height + 16}" text-anchor="middle" '
                     f'font-size="11">{k}</text>')
@@ -122,8 +122,8 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
             f'<path class="forecast-fan" d="M{x0:.1f},{y0:.1f} L{xn:.1f},{f.y(hi):.1f} '
             f'L{xn:.1f},{f.y(lo):.1f} Z" '
             f'fill="{FAN}" fill-opacity="0.3" stroke="{FAN}">'
-            f"<title>Forecast 95 % band at layer {layers_per_side}: {_fmt(lo)} to "
-            f"{_fmt(hi)} µm</title></path>"
+            f"<title>Forecast 95 % band at layer {layers_per_side}: {fmt(lo)} to "
+            f"{fmt(hi)} µm</title></path>"
             f'<line class="forecast-line" x1="{x0:.1f}" y1="{y0:.1f}" '
             f'x2="{f.x(layers_per_side):.1f}" y2="{f.y(forecast.ftb_final_forecast_um):.1f}" '
             f'stroke="{FTB}" stroke-width="2" stroke-dasharray="2 4"/>'
@@ -132,26 +132,27 @@ def stack_walk_svg(stack: StackRead, panel: PanelRead, *, ftb_limit_um: float,
                 f'y1="{f.y(ftb_limit_um):.1f}" y2="{f.y(ftb_limit_um):.1f}" stroke="{LIMIT}" '
                 f'stroke-width="2" stroke-dasharray="8 4"/>'
                 f'<text x="{f.left + 6}" y="{f.y(ftb_limit_um) - 5:.1f}" font-size="11" '
-                f'fill="{LIMIT}">FTB limit {_fmt(ftb_limit_um)} µm</text>')
+                f'fill="{LIMIT}">FTB limit {fmt(ftb_limit_um)} µm</text>')
     series = (("side-a", "A", SIDE_A, "square", "6 3"), ("side-b", "B", SIDE_B, "triangle",
                                                           "2 3"))
     for css, side, colour, shape, dash in series:
         pts = [(0, 0.0), *sides[side]]
         body.append(_polyline(f, pts, colour, dash, css))
-        body += [_marker(shape, f.x(k), f.y(v), colour, f"{css}-point",
-                         f"Side {side} after layer {k}: {_fmt(v)} µm") for k, v in sides[side]]
+        body += [marker(shape, f.x(k), f.y(v), colour, f"{css}-point",
+                         f"Side {side} after layer {k}: {fmt(v)} µm") for k, v in sides[side]]
     body.append(_polyline(f, [(0, 0.0), *ftb], FTB, "", "ftb-walk", width=2.5))
-    body += [_marker("circle", f.x(k), f.y(v), FTB, "ftb-point",
-                     f"FTB after layer {k}: {_fmt(v)} µm") for k, v in ftb]
+    body += [marker("circle", f.x(k), f.y(v), FTB, "ftb-point",
+                     f"FTB after layer {k}: {fmt(v)} µm") for k, v in ftb]
     body.append(_legend(f.left + 10, f.top + f.height + 48, [
         ("circle", FTB, "", "FTB, both sides"), ("square", SIDE_A, "6 3", "Side A stack"),
         ("triangle", SIDE_B, "2 3", "Side B stack"), ("fan", FAN, "", "Forecast, 95 % band"),
         ("limit", LIMIT, "8 4", "FTB limit")]))
-    desc = (f"Worst FTB after each of {len(ftb)} layers, ending at {_fmt(panel.ftb_current_um)} µm "
-            f"against a limit of {_fmt(ftb_limit_um)} µm"
-            + (f"; forecast {_fmt(forecast.ftb_final_forecast_um)} µm at layer {layers_per_side}"
+    desc = (f"Worst FTB after each of {len(ftb)} layers, ending at {fmt(panel.ftb_current_um)} µm "
+            f"against a limit of {fmt(ftb_limit_um)} µm"
+            + (f"; forecast {fmt(forecast.ftb_final_forecast_um)} µm at layer {layers_per_side}"
                if forecast is not None else "") + ".")
-    return _svg(640, 360, "Stack walk", desc, body, ident=ident, css_class="chart stack-walk")
+    return svg_document(640, 360, "Stack walk", desc, body, ident=ident,
+                        css_class="chart stack-walk")
 
 
 def _polyline(f: _Frame, pts: Sequence[tuple[float, float]], colour: str, dash: str, css: str,
@@ -173,7 +174,7 @@ def _legend(x: float, y: float, items: Sequence[tuple[str, str, str, str]]) -> s
             out.append(f'<line x1="{cx}" x2="{cx + 22}" y1="{y - 2}" y2="{y - 2}" '
                        f'stroke="{colour}" stroke-width="2"{dashing}/>')
             if shape != "limit":
-                out.append(_marker(shape, cx + 11, y - 2, colour, "legend-mark", label))
+                out.append(marker(shape, cx + 11, y - 2, colour, "legend-mark", label))
         out.append(f'<text x="{cx + 27}" y="{y + 2}" font-size="11">{escape(label)}</text>')
         cx += 32 + 5.8 * len(label)
     return "".join(out)
@@ -192,12 +193,15 @@ class Arrow:
 
 def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float, title: str,
                    ident: str, colour: str = FTB, size_px: int = 300,
-                   mark: tuple[float, float] | None = None, what: str = "vector") -> Markup:
-    """Arrows over the panel outline with a scale arrow; ``mark`` rings one point (the worst)."""
+                   mark: tuple[float, float] | None = None, what: str = "vector",
+                   seen_from: str = "side A") -> Markup:
+    """Arrows over the panel outline with a scale arrow; ``mark`` rings one point (the worst).
+    ``seen_from`` names the view: side A (the panel frame) or, for a tool frame of side B,
+    side B."""
     pad = 34
     scale_px = (size_px - 2 * pad) / max(width_mm, height_mm)  # px per mm
     w, h = width_mm * scale_px, height_mm * scale_px
-    total_h = int(h + 2 * pad + 34)
+    total_h = int(h + 2 * pad + 48)
     longest = max((math.hypot(a.dx_um, a.dy_um) for a in arrows), default=0.0)
     # The longest arrow is drawn an eighth of the panel's width long.
     px_per_um = (w / 8) / longest if longest > 0 else 1.0
@@ -207,14 +211,12 @@ def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float
             f'<path d="M0,0 L10,5 L0,10 z" fill="{colour}"/></marker></defs>',
             f'<rect class="panel-outline" x="{pad}" y="{pad}" width="{w:.1f}" height="{h:.1f}" '
             f'fill="#fbfbf9" stroke="#4a5562" stroke-width="1.5"/>',
-            f'<text x="{cx:.1f}" y="{pad - 8}" text-anchor="middle" font-size="11">'
-            f"Panel {_fmt(width_mm)} × {_fmt(height_mm)} mm, from side A, y up</text>",
             f'<g class="arrows" stroke="{colour}" stroke-width="1.6">']
     for a in arrows:
         x0, y0 = cx + a.x_mm * scale_px, cy - a.y_mm * scale_px
         x1, y1 = x0 + a.dx_um * px_per_um, y0 - a.dy_um * px_per_um
-        label = a.label or (f"{_fmt(math.hypot(a.dx_um, a.dy_um))} µm at "
-                            f"({_fmt(a.x_mm)}, {_fmt(a.y_mm)}) mm")
+        label = a.label or (f"{fmt(math.hypot(a.dx_um, a.dy_um))} µm at "
+                            f"({fmt(a.x_mm)}, {fmt(a.y_mm)}) mm")
         body.append(f'<line x1="{x0:.1f}" y1="{y0:.1f}" x2="{x1:.1f}" y2="{y1:.1f}" '
                     f'marker-end="url(#{ident}-head)"><title>{escape(label)}</title></line>')
     body.append("</g>")
@@ -228,7 +230,13 @@ def vector_map_svg(arrows: Sequence[Arrow], *, width_mm: float, height_mm: float
                 f'<line x1="{pad}" y1="{y_scale:.1f}" x2="{pad + ref * px_per_um:.1f}" '
                 f'y2="{y_scale:.1f}" marker-end="url(#{ident}-head)"/></g>'
                 f'<text x="{pad + ref * px_per_um + 8:.1f}" y="{y_scale + 4:.1f}" '
-                f'font-size="11">{_fmt(ref)} µm {escape(what)}</text>')
-    desc = (f"{len(arrows)} arrows; the longest is {_fmt(longest)} µm; the scale arrow is "
-            f"{_fmt(ref)} µm.")
-    return _svg(size_px, total_h, title, desc, body, ident=ident, css_class="chart vector-map")
+                f'font-size="11">{fmt(ref)} µm {escape(what)}</text>'
+                # Below the scale arrow, where no arrow reaches (the top row's arrows may
+                # rise above the outline).
+                f'<text x="{pad}" y="{y_scale + 22:.1f}" '
+                f'font-size="11">Panel {fmt(width_mm)} × {fmt(height_mm)} mm, from '
+                f"{escape(seen_from)}, y up</text>")
+    desc = (f"{len(arrows)} arrows; the longest is {fmt(longest)} µm; the scale arrow is "
+            f"{fmt(ref)} µm.")
+    return svg_document(size_px, total_h, title, desc, body, ident=ident,
+                        css_class="chart vector-map")
