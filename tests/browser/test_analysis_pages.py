@@ -1,7 +1,7 @@
 """The engineer's analysis pages and the lot summary in Debian's chromium, on the demo scenario,
 on both databases: each page opens, its charts carry one element per figure of the service's
 report, links lead where they say, the keyboard reaches every link, axe-core finds no serious
-or critical violation, a tool key neither sees nor opens them, and each page is shot."""
+or critical violation, an uploader key neither sees nor opens them, and each page is shot."""
 
 from __future__ import annotations
 
@@ -208,7 +208,7 @@ def test_axe_finds_no_serious_violation(browser: Any, demo_server: DemoServer) -
         context.close()
 
 
-def test_a_tool_key_neither_sees_nor_opens_them(page: Any, demo_server: DemoServer) -> None:
+def test_an_uploader_key_neither_sees_nor_opens_them(page: Any, demo_server: DemoServer) -> None:
     offline(page)
     sign_in(page, demo_server, "uploader", "/rejected-uploads")
     nav = page.locator("header nav a").evaluate_all("as => as.map(a => a.pathname)")
@@ -216,4 +216,4 @@ def test_a_tool_key_neither_sees_nor_opens_them(page: Any, demo_server: DemoServ
     for path in (*NEW_PAGES, f"/lots/{_lot_of_first_hold(demo_server)}"):
         answer = page.goto(f"{demo_server.url}{path}")
         assert answer is not None and answer.status == 403, path
-        assert "role 'tool' may not" in page.locator("main").inner_text()
+        assert "role 'uploader' may not" in page.locator("main").inner_text()
