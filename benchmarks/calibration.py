@@ -47,12 +47,11 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from _data import Timer
-from calibration_scores import layer_score, panel_scores, z_scores
+from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
 from line_sim import Line, LineConfig, Lot
 
 T0 = datetime(2026, 11, 2, 6, 0, tzinfo=UTC)
 CHECK_LAYERS = (3, 6, 9)
-THETAS = (0.1, 0.2, 0.3, 0.4, 0.5)
 
 
 @dataclass
@@ -162,8 +161,8 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
             k = layer_of[serial]
             track.p[serial][k - 1] = p if p is not None else np.nan
             track.flag[serial][k - 1] = risk in ("at_risk", "over_limit")
-            if k == 3 and forecast and "final_terms" in forecast:
-                track.sx[serial] = (forecast["final_terms"][2], forecast["final_terms_sd"][2])
+            if k == 3 and forecast is not None and forecast.final_terms:
+                track.sx[serial] = (forecast.final_terms[2], forecast.final_terms_sd[2])
         if args.verbose:
             print(f"step {step}: {len(work)} lots, {len(body) / 1e6:.1f} MB, "
                   f"{time.perf_counter() - t:.1f} s", flush=True)
@@ -200,13 +199,7 @@ def report(name: str, track: Track, line: Line) -> None:
             print(f"        p in [{lo:.2f}, {hi:.2f}): n {n:4d}, mean p {mp:.3f}, "
                   f"observed {obs:.3f}")
     ps = panel_scores(flag, y, by=9)
-    # The same rates if a panel were flagged whenever P reached an at-risk threshold theta
-    # (no hysteresis, no current-FTB rules): how the trade-off moves with that product setting.
-    print("P-only flags by layer 9:  theta  false alarm  miss   hit")
-    for theta in THETAS:
-        alt = panel_scores(np.nan_to_num(p) >= theta, y, by=9)
-        print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
-              f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")
+    print_sweep(p, y)
     print(f"false alarm (passing flagged by layer 9): {ps.false_alarm}")
     print(f"miss (failing never flagged by layer 9):  {ps.miss}")
     print(f"hit (flagged by layer 9 that fail):        {ps.hit}")

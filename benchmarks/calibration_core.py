@@ -22,12 +22,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from calibration_scores import layer_score, panel_scores, z_scores
+from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
 from line_core import run_core
 from line_sim import Line, LineConfig
 
 CHECK_LAYERS = (3, 6, 9)
-THETAS = (0.1, 0.2, 0.3, 0.4, 0.5)
 
 
 def main() -> None:
@@ -57,11 +56,7 @@ def main() -> None:
         sc = layer_score(p[:, k - 1], y, k)
         print(f"{k:5d} {sc.n:3d} {sc.sum_p:6.1f} {sc.failures:6d} {sc.ratio:6.2f} "
               f"{sc.brier:6.3f} {sc.skill:6.2f}")
-    print("P-only flags by layer 9:  theta  false alarm  miss   hit")
-    for theta in THETAS:
-        alt = panel_scores(np.nan_to_num(p) >= theta, y, by=9)
-        print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
-              f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")
+    print_sweep(p, y)
     ps = panel_scores(flag, y, by=9)
     print(f"false alarm (passing flagged by layer 9): {ps.false_alarm}")
     print(f"miss (failing never flagged by layer 9):  {ps.miss}")
