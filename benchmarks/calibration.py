@@ -23,8 +23,8 @@ Printed, for each product: per layer 3, 6, 9 the sum of predicted p against actu
 Brier score and skill, a reliability table; per panel the false alarm, miss and hit rates (flag
 = at_risk or over_limit at some state by layer 9) and the median layer of first flag; the
 flapping share; the z-score of the final FTB scale term (Sx) of the growing-core-scale panels
-after layer 3; and the forecast's cost: time in ``panel_estimate._forecast`` against the wall
-time of the
+after layer 3; the oracle bound of ``calibration_oracle.py`` on the same panels; and the
+forecast's cost: time in ``panel_estimate._forecast`` against the wall time of the
 import POSTs, measured in this run. Rates come with their binomial standard error.
 """
 
@@ -47,6 +47,8 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from _data import Timer
+from calibration_oracle import flags as oracle_flags
+from calibration_oracle import oracle_p
 from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
 from line_sim import Line, LineConfig, Lot
 
@@ -205,6 +207,19 @@ def report(name: str, track: Track, line: Line) -> None:
     print(f"hit (flagged by layer 9 that fail):        {ps.hit}")
     print(f"median layer of first flag (failing):      {ps.first_flag_median:.1f}")
     print(f"flapping (out of flagged at least twice):  {ps.flapping}")
+    # What no forecast can beat on these panels: the oracle that knows all but the randomness
+    # still to come (calibration_oracle.py), with the default at-risk rule.
+    rng = np.random.default_rng(1)
+    scored_lots = [lot for lot in track.lots if lot.serials[0] in track.scored]
+    po = np.concatenate([np.stack([oracle_p(line, lot, k, 1000, rng)
+                                   for k in range(1, line.config.layers + 1)], axis=1)
+                         for lot in scored_lots])
+    yo = np.concatenate([line.final_ftb_worst(lot) > line.config.ftb_limit_um
+                         for lot in scored_lots])
+    po_scores = panel_scores(oracle_flags(po), yo, by=9)
+    print(f"oracle bound: skill after layer 3 {layer_score(po[:, 2], yo, 3).skill:.2f}; "
+          f"flags 0.20 / 0.10: false alarm {po_scores.false_alarm.value:.3f}, miss "
+          f"{po_scores.miss.value:.3f}, hit {po_scores.hit.value:.3f}")
     g = np.array(growing)
     mean_sd = np.array([track.sx.get(s, (np.nan, np.nan)) for s in serials])
     z = z_scores(np.array(sx_true)[g], mean_sd[g, 0], mean_sd[g, 1])
