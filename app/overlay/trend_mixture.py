@@ -130,10 +130,24 @@ def group_total(values: FloatArray) -> FloatArray:
     return out
 
 
+def _scatter(a: FloatArray) -> FloatArray:
+    """sum_n a_n a_n^T per component: (8, d, d) from a (N, 8, d), as a batched matmul."""
+    per_comp = np.swapaxes(a, 0, 1)  # (8, N, d)
+    out: FloatArray = np.swapaxes(per_comp, 1, 2) @ per_comp
+    return out
+
+
+def _quadratic(dev: FloatArray, inv: FloatArray) -> FloatArray:
+    """dev_n^T inv dev_n per panel and component: (N, 8) from dev (N, 8, d), inv (8, d, d)."""
+    per_comp = np.swapaxes(dev, 0, 1)  # (8, N, d)
+    out: FloatArray = np.swapaxes(np.sum((per_comp @ inv) * per_comp, axis=2), 0, 1)
+    return out
+
+
 def _class_loglik(dev: FloatArray, cov: FloatArray) -> FloatArray:
     """log N(dev; 0, cov) up to the common constant, (N, 8) for dev (N, 8, d), cov (8, d, d)."""
     inv, logdet = pinv_logdet(cov)
-    maha = np.einsum("nci,cij,ncj->nc", dev, inv, dev, optimize=True)
+    maha = _quadratic(dev, inv)
     out: FloatArray = -0.5 * (logdet[None, :] + maha)
     return out
 
@@ -153,12 +167,15 @@ def shrinkage_intensity(centred: FloatArray, target: FloatArray) -> FloatArray:
     n = centred.shape[0]
     if n < 2:
         return np.ones(target.shape[0])
-    w = np.einsum("nci,ncj->ncij", centred, centred)
-    sample = w.sum(axis=0) / (n - 1.0)
-    var_s = n / (n - 1.0) ** 3 * np.sum((w - w.mean(axis=0)) ** 2, axis=0)
+    # sum_ij sum_k (w_kij - wbar_ij)^2 = sum_k |x_k|^4 - n |wbar|_F^2, without the (N, p, p)
+    # array of products.
+    wbar = _scatter(centred) / n
+    sample = wbar * (n / (n - 1.0))
+    norms = np.einsum("nci,nci->nc", centred, centred)
+    spread = np.sum(norms**2, axis=0) - n * np.sum(wbar**2, axis=(1, 2))
+    var_s = n / (n - 1.0) ** 3 * np.clip(spread, 0.0, None)
     gap = np.sum((sample - target) ** 2, axis=(1, 2))
-    out: FloatArray = np.clip(np.sum(var_s, axis=(1, 2)) / np.where(gap > 0.0, gap, np.inf),
-                              0.0, 1.0)
+    out: FloatArray = np.clip(var_s / np.where(gap > 0.0, gap, np.inf), 0.0, 1.0)
     return out
 
 
@@ -190,7 +207,7 @@ def _m_step(z: FloatArray, r: FloatArray, m: FloatArray, post: FloatArray, x: Fl
     xpx = np.einsum("ij,cjl,kl->cik", x, post, x)
     ru = np.sqrt(1.0 - r)[:, :, None] * u
     rv = np.sqrt(r)[:, :, None] * v
-    scatter = (np.einsum("nci,ncj->cij", ru, ru) + np.einsum("nci,ncj->cij", rv, rv)
+    scatter = (_scatter(ru) + _scatter(rv)
                + sr[:, None, None] * xpx)
     # Shrinkage intensity from the expected quiet residuals (1 - r) u + r v = u - r X m.
     lam = shrinkage_intensity(u - shift, target)[:, None, None]
@@ -243,7 +260,8 @@ def fit_trend_mixture(z: FloatArray, target: FloatArray, layers: int, *,
         total = float(np.sum(np.logaddexp(log_q, log_t)[:, firsts])) / n
         # Posterior of each panel's trend coefficients, were it trending.
         gain = np.einsum("cj,ij,cik->cjk", params.coef_var, x, inv_t)  # psi X^T Sigma_t^-1
-        m = params.coef_mean[None] + np.einsum("cjk,nck->ncj", gain, dev_t)
+        m = params.coef_mean[None] + np.swapaxes(np.swapaxes(dev_t, 0, 1) @ np.swapaxes(
+            gain, 1, 2), 0, 1)
         post = (params.coef_var[:, :, None] * np.eye(4)[None]
                 - np.einsum("cjk,kl,cl->cjl", gain, x, params.coef_var))
         params = _m_step(z, r, m, post, x, target, psi0, active, k0)
@@ -283,8 +301,8 @@ def _log_classes(z: FloatArray, params: _Params, x: FloatArray, active: np.ndarr
     dev_t = dev_q - params.coef_mean @ x.T
     inv_t, logdet_t = pinv_logdet(sigma_t)
     ll_q = group_total(np.where(active, _class_loglik(dev_q, params.sigma_q), 0.0))
-    ll_t = group_total(np.where(active, -0.5 * (logdet_t[None] + np.einsum(
-        "nci,cij,ncj->nc", dev_t, inv_t, dev_t, optimize=True)), 0.0))
+    ll_t = group_total(np.where(active, -0.5 * (logdet_t[None] + _quadratic(dev_t, inv_t)),
+                                0.0))
     share = np.where(active, params.share, 0.5)  # inactive: any share, r is set to 0
     with np.errstate(divide="ignore"):
         log_q = np.log1p(-share) + ll_q
