@@ -60,7 +60,12 @@ import numpy as np
 
 from app.overlay.errors import OverlayInputError
 from app.overlay.frames import mirror_terms
-from app.overlay.layer_history import FROM_COMPONENTS, TO_COMPONENTS, ProductHistory
+from app.overlay.layer_history import (
+    COMPONENTS,
+    FROM_COMPONENTS,
+    TO_COMPONENTS,
+    ProductHistory,
+)
 from app.overlay.model import N_TERMS, FloatArray, evaluate
 from app.overlay.probability import WorstPointExceedance, adaptive_worst_point_exceedance
 from app.overlay.trend_mixture import GROUP_OF, group_total, pinv_logdet
@@ -205,9 +210,12 @@ def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance)
     else:
         source = "the new-product prior from the product's own L2L capability"
     carried = f"; tool {tool}'s effect carried into the remaining layers" if tool else ""
+    mixed = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
+                      if pi > 0.0)
+    classes = f"; quiet and trending panels in {mixed}" if mixed else ""
     return (
-        f"layer-by-layer conditional forecast from {source}{carried}; {ex.n_samples} seeded "
-        f"samples (Monte Carlo standard error {ex.stderr:.3f})"
+        f"layer-by-layer conditional forecast from {source}{classes}{carried}; "
+        f"{ex.n_samples} seeded samples (Monte Carlo standard error {ex.stderr:.3f})"
     )
 
 

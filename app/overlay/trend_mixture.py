@@ -29,7 +29,10 @@ McLachlan and Peel, *Finite Mixture Models*, 2000, ch. 2-3), on the product's co
   one-panel prior psi0 = w, one layer's variance, on offset and slope); mu and Sigma_q from the
   expected quiet residuals, Sigma_q shrunk toward the prior's structure as in ``layer_history``.
 
-Components with no variance (terms the product does not fit) keep pi = 0.
+A group of components keeps its trending class only where the mixture beats one class by the
+Bayesian information criterion (Schwarz 1978); otherwise it keeps exactly the one-class model.
+Tx and Ty share one class per panel (``TREND_GROUPS``). Components with no variance (terms the
+product does not fit) keep pi = 0.
 """
 
 from __future__ import annotations
@@ -48,7 +51,8 @@ EM_ITERATIONS: Final = 40
 EM_TOLERANCE: Final = 1e-3
 #: Panels the coefficient-variance prior psi0 counts for.
 TREND_PRIOR_PANELS: Final = 1.0
-#: Starting share of trending panels (EM moves it; the result does not depend on it).
+#: Share of panels taken as trending at the start (the EM moves it; EM finds a local optimum,
+#: so the start is fixed and deterministic: see ``fit_trend_mixture``).
 START_SHARE: Final = 0.1
 #: Components that share one class per panel: a drift in some direction is one cause that
 #: loads both translations (by the panel's direction), so Tx and Ty are quiet or trending

@@ -122,3 +122,9 @@ def test_growing_panel_is_forecast_with_its_growth():
     # the final scale's z is much nearer 0 than with one Gaussian class.
     assert np.median(weights) > 0.8
     assert abs(np.mean(z["mixture"])) < 0.5 < np.mean(z["one class"]) - 0.5
+    f = forecast_final(observed_a={1: fresh[0, 0, 0]}, observed_b={}, history=h,
+                       points_mm=CENTRE, ftb_limit_um=50.0, n_max=500)
+    assert "quiet and trending panels in scale;" in f.method
+    assert "trending" not in forecast_final(
+        observed_a={1: fresh[0, 0, 0]}, observed_b={}, history=one_class, points_mm=CENTRE,
+        ftb_limit_um=50.0, n_max=500).method
