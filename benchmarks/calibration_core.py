@@ -6,8 +6,9 @@
 The same simulated line (``line_sim.py``) through ``line_core.run_core``: the observed terms are
 the true terms plus the least-squares fit noise, the history is learned by the core from the
 complete and in-process panels before each step. It is quicker than the service run, so it can
-compare models and other simulated lines (``--seed``, ``--drift-share``, ``--growth-share``); the
-figures in docs/forecast.md come from ``calibration.py`` through the service.
+compare models and other simulated lines (``--seed``, ``--drift-share``, ``--drift-um``,
+``--growth-share``); the main figures in docs/forecast.md come from ``calibration.py`` through
+the service.
 """
 
 from __future__ import annotations
@@ -36,12 +37,15 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=2026)
     ap.add_argument("--drift-share", type=float, default=None)
     ap.add_argument("--growth-share", type=float, default=None)
+    ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
     args = ap.parse_args()
     config = LineConfig()
     if args.drift_share is not None:
         config = replace(config, drift_share=args.drift_share)
     if args.growth_share is not None:
         config = replace(config, growth_share=args.growth_share)
+    if args.drift_um is not None:
+        config = replace(config, drift_um=tuple(args.drift_um))
     t = time.perf_counter()
     line = Line(config, seed=args.seed)
     run = run_core(line, lots=args.warm_lots + args.lots, score_from=args.warm_lots)
