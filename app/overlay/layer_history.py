@@ -34,9 +34,9 @@ Learning, from the caller's window of the product's panels
 - Posterior, n complete panels (normal-inverse-Wishart, prior worth ``PRIOR_PANELS`` panels:
   Gelman et al., *Bayesian Data Analysis*, 3rd ed., section 3.6):
   mu = n / (n + k0) zbar, Sigma = (nu0 Sigma0 + S + k0 n / (k0 + n) zbar zbar^T) / (nu0 + n),
-  with S = n S_shrunk, S_shrunk the quiet panels' sample covariance shrunk toward the prior's
-  structure (``trend_mixture.shrinkage_intensity``). The path from prior to history is smooth
-  in n (credibility), with no switch at a panel count.
+  with zbar the quiet mean, S = n S_shrunk, S_shrunk the quiet panels' sample covariance
+  shrunk toward the prior's structure (``trend_mixture.shrinkage_intensity``). The path from
+  prior to history is smooth in n (credibility), with no switch at a panel count.
 - Quiet and trending panels (``trend_mixture``): Sigma and mu above are the quiet class's; a
   share pi of panels (learned by EM from the complete panels, 0 with none) adds a per-side
   offset and layer-index trend, ``trend_mean`` and ``trend_cov``.
@@ -98,10 +98,10 @@ class ProductHistory:
     layers : int
         L, layers per side; slots are A1..AL then B1..BL (2L).
     mean : array, shape (8, 2L)
-        Expected deviation of each slot, tool effects removed.
+        Expected deviation of each slot for a quiet panel, tool effects removed.
     data_scatter : array, shape (8, 2L, 2L)
-        S + k0 n / (k0 + n) zbar zbar^T of the complete panels (zeros with none); Sigma is
-        ``cov_without(panel)``.
+        S + k0 n / (k0 + n) zbar zbar^T of the complete panels' expected quiet parts (zeros
+        with none; ``trend_mixture``); the quiet Sigma is ``cov_without(panel)``.
     n_complete : int
         Complete panels behind ``mean`` and ``cov`` (0: prior only).
     dof : float
