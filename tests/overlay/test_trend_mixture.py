@@ -128,3 +128,20 @@ def test_growing_panel_is_forecast_with_its_growth():
     assert "trending" not in forecast_final(
         observed_a={1: fresh[0, 0, 0]}, observed_b={}, history=one_class, points_mm=CENTRE,
         ftb_limit_um=50.0, n_max=500).method
+
+
+@pytest.mark.parametrize("layers", [1, 2])
+@pytest.mark.parametrize("n", [1, 2, 30])
+@pytest.mark.parametrize("spread", [0.0, 1.0])
+def test_few_panels_short_stacks_and_identical_panels_give_finite_forecasts(layers, n, spread):
+    rng = np.random.default_rng(n)
+    t = np.zeros((n, 2, layers, 8))
+    t[..., :6] = spread * rng.normal(0, 1, (n, 2, layers, 6)) * [2, 2, 1e-3, 1e-3, 1e-3, 1e-3]
+    h = learn_history(t, np.ones((n, 2, layers), dtype=bool), np.zeros((n, 2, layers), dtype=int),
+                      ("T0",), panel_ids=tuple(f"P{i}" for i in range(n)), flip_axis="y",
+                      limit_var=LIMIT_VAR)
+    with np.errstate(all="raise"):
+        f = forecast_final(observed_a={1: t[0, 0, 0]}, observed_b={}, history=h,
+                           points_mm=CENTRE, ftb_limit_um=20.0, n_max=500)
+    assert np.isfinite(f.p_exceed) and np.all(np.isfinite(f.final_cov_terms))
+    assert np.all((h.trend_share >= 0.0) & (h.trend_share < 1.0))
