@@ -23,6 +23,14 @@ and the remaining contribution to the FTB component is a^T z_r with a = +1 on si
 side B. A panel that keeps drifting one way is caught because Sigma carries the layer-to-layer
 persistence the product shows (offsets, random walks, growth), learned rather than assumed.
 
+Quiet and trending panels (``trend_mixture``): the conditional is computed for both classes,
+quiet (mu, Sigma) and trending (mu + X beta0, Sigma + X diag(psi) X^T). The class posterior of
+each trend group (Tx and Ty together, each shape component alone) is pi f_t / ((1 - pi) f_q +
+pi f_t), f the t density of the observed deviations under each class (Bayes' rule; the t
+densities as in Kotz and Nadarajah, section 1.1). The forecast of a component is the two-class
+mixture: each sample draws its group's class from the posterior, then that class's t; the
+reported mean and variance of the final terms are the mixture's moments.
+
 Uncertainty of learned parameters: Sigma is a posterior from ``dof`` = nu0 + n panels, so the
 predictive is Student t rather than normal. Conditioning a multivariate t with nu degrees of
 freedom on n_o components gives a t with nu + n_o degrees of freedom whose scale is multiplied by
