@@ -23,8 +23,8 @@ Printed, for each product: per layer 3, 6, 9 the sum of predicted p against actu
 Brier score and skill, a reliability table; per panel the false alarm, miss and hit rates (flag
 = at_risk or over_limit at some state by layer 9) and the median layer of first flag; the
 flapping share; the z-score of the final FTB scale term (Sx) of the growing-core-scale panels
-after layer 3; and the forecast's cost: time in ``panel_estimate._forecast`` against the wall
-time of the
+after layer 3; the oracle bound of ``calibration_oracle.py`` on the same panels; and the
+forecast's cost: time in ``panel_estimate._forecast`` against the wall time of the
 import POSTs, measured in this run. Rates come with their binomial standard error.
 """
 
@@ -47,12 +47,13 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from _data import Timer
-from calibration_scores import layer_score, panel_scores, z_scores
+from calibration_oracle import flags as oracle_flags
+from calibration_oracle import oracle_p
+from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
 from line_sim import Line, LineConfig, Lot
 
 T0 = datetime(2026, 11, 2, 6, 0, tzinfo=UTC)
 CHECK_LAYERS = (3, 6, 9)
-THETAS = (0.1, 0.2, 0.3, 0.4, 0.5)
 
 
 @dataclass
@@ -162,8 +163,8 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
             k = layer_of[serial]
             track.p[serial][k - 1] = p if p is not None else np.nan
             track.flag[serial][k - 1] = risk in ("at_risk", "over_limit")
-            if k == 3 and forecast and "final_terms" in forecast:
-                track.sx[serial] = (forecast["final_terms"][2], forecast["final_terms_sd"][2])
+            if k == 3 and forecast is not None and forecast.final_terms:
+                track.sx[serial] = (forecast.final_terms[2], forecast.final_terms_sd[2])
         if args.verbose:
             print(f"step {step}: {len(work)} lots, {len(body) / 1e6:.1f} MB, "
                   f"{time.perf_counter() - t:.1f} s", flush=True)
@@ -200,18 +201,25 @@ def report(name: str, track: Track, line: Line) -> None:
             print(f"        p in [{lo:.2f}, {hi:.2f}): n {n:4d}, mean p {mp:.3f}, "
                   f"observed {obs:.3f}")
     ps = panel_scores(flag, y, by=9)
-    # The same rates if a panel were flagged whenever P reached an at-risk threshold theta
-    # (no hysteresis, no current-FTB rules): how the trade-off moves with that product setting.
-    print("P-only flags by layer 9:  theta  false alarm  miss   hit")
-    for theta in THETAS:
-        alt = panel_scores(np.nan_to_num(p) >= theta, y, by=9)
-        print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
-              f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")
+    print_sweep(p, y)
     print(f"false alarm (passing flagged by layer 9): {ps.false_alarm}")
     print(f"miss (failing never flagged by layer 9):  {ps.miss}")
     print(f"hit (flagged by layer 9 that fail):        {ps.hit}")
     print(f"median layer of first flag (failing):      {ps.first_flag_median:.1f}")
     print(f"flapping (out of flagged at least twice):  {ps.flapping}")
+    # What no forecast can beat on these panels: the oracle that knows all but the randomness
+    # still to come (calibration_oracle.py), with the default at-risk rule.
+    rng = np.random.default_rng(1)
+    scored_lots = [lot for lot in track.lots if lot.serials[0] in track.scored]
+    po = np.concatenate([np.stack([oracle_p(line, lot, k, 1000, rng)
+                                   for k in range(1, line.config.layers + 1)], axis=1)
+                         for lot in scored_lots])
+    yo = np.concatenate([line.final_ftb_worst(lot) > line.config.ftb_limit_um
+                         for lot in scored_lots])
+    po_scores = panel_scores(oracle_flags(po), yo, by=9)
+    print(f"oracle bound: skill after layer 3 {layer_score(po[:, 2], yo, 3).skill:.2f}; "
+          f"flags 0.20 / 0.10: false alarm {po_scores.false_alarm.value:.3f}, miss "
+          f"{po_scores.miss.value:.3f}, hit {po_scores.hit.value:.3f}")
     g = np.array(growing)
     mean_sd = np.array([track.sx.get(s, (np.nan, np.nan)) for s in serials])
     z = z_scores(np.array(sx_true)[g], mean_sd[g, 0], mean_sd[g, 1])

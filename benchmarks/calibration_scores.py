@@ -104,3 +104,16 @@ def z_scores(truth: np.ndarray, mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         out: np.ndarray = np.where(sd > 0, (np.asarray(truth) - np.asarray(mean)) / sd, np.nan)
     return out
+
+
+THETAS = (0.1, 0.2, 0.3, 0.4, 0.5)
+
+
+def print_sweep(p: np.ndarray, fails: np.ndarray, *, by: int = 9) -> None:
+    """False alarm, miss and hit if a panel were flagged as soon as P reached theta (no
+    hysteresis, no current-FTB rules): how the trade-off moves with the at-risk setting."""
+    print(f"P-only flags by layer {by}:  theta  false alarm  miss   hit")
+    for theta in THETAS:
+        alt = panel_scores(np.nan_to_num(p) >= theta, fails, by=by)
+        print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
+              f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")

@@ -81,6 +81,11 @@ class Lot:
     drifting: np.ndarray  # (panels,) bool
     growing: np.ndarray  # (panels,) bool
     measured: dict[str, np.ndarray] = field(default_factory=dict)
+    # The random parts that are new at every layer (for the oracle bound of
+    # calibration_oracle.py): layer scatter (panels, 2, layers, 8) and the random walk of the
+    # offset (panels, 2, layers, 2), both included in ``terms``.
+    scatter: np.ndarray | None = None
+    walk: np.ndarray | None = None
 
 
 class Line:
@@ -130,6 +135,7 @@ class Line:
         # Constant offset plus random walk of the per-layer offset, per side.
         offset = rng.normal(0.0, c.offset_um, (n, 2, 1, 2))
         walk = np.cumsum(rng.normal(0.0, c.walk_um, (n, 2, big_l, 2)), axis=2)
+        scatter = t.copy()
         t[..., :2] += offset + walk
         drifting = rng.random(n) < c.drift_share
         for i in np.flatnonzero(drifting):
@@ -149,7 +155,7 @@ class Line:
                 t[:, s, layer] += self.tool_terms(int(tools[layer, s]), side,
                                                   start_step + layer)
         return Lot(code=code, start_step=start_step, serials=serials, terms=t, tools=tools,
-                   kept=kept, drifting=drifting, growing=growing)
+                   kept=kept, drifting=drifting, growing=growing, scatter=scatter, walk=walk)
 
     def final_ftb_worst(self, lot: Lot) -> np.ndarray:
         """True final worst FTB length over the check points, per panel of the lot."""

@@ -23,6 +23,14 @@ and the remaining contribution to the FTB component is a^T z_r with a = +1 on si
 side B. A panel that keeps drifting one way is caught because Sigma carries the layer-to-layer
 persistence the product shows (offsets, random walks, growth), learned rather than assumed.
 
+Quiet and trending panels (``trend_mixture``): the conditional is computed for both classes,
+quiet (mu, Sigma) and trending (mu + X beta0, Sigma + X diag(psi) X^T). The class posterior of
+each trend group (Tx and Ty together, each shape component alone) is pi f_t / ((1 - pi) f_q +
+pi f_t), f the t density of the observed deviations under each class (Bayes' rule; the t
+densities as in Kotz and Nadarajah, section 1.1). The forecast of a component is the two-class
+mixture: each sample draws its group's class from the posterior, then that class's t; the
+reported mean and variance of the final terms are the mixture's moments.
+
 Uncertainty of learned parameters: Sigma is a posterior from ``dof`` = nu0 + n panels, so the
 predictive is Student t rather than normal. Conditioning a multivariate t with nu degrees of
 freedom on n_o components gives a t with nu + n_o degrees of freedom whose scale is multiplied by
@@ -60,13 +68,17 @@ import numpy as np
 
 from app.overlay.errors import OverlayInputError
 from app.overlay.frames import mirror_terms
-from app.overlay.layer_history import FROM_COMPONENTS, TO_COMPONENTS, ProductHistory
+from app.overlay.layer_history import (
+    COMPONENTS,
+    FROM_COMPONENTS,
+    TO_COMPONENTS,
+    ProductHistory,
+)
 from app.overlay.model import N_TERMS, FloatArray, evaluate
 from app.overlay.probability import WorstPointExceedance, adaptive_worst_point_exceedance
+from app.overlay.trend_mixture import GROUP_OF, group_total, pinv_logdet
 
 SIDES: Final = ("A", "B")
-# Relative cut-off of the symmetric pseudo-inverse (directions with no variance carry no data).
-_PINV_RTOL: Final = 1e-10
 
 
 def _frozen(a: FloatArray) -> FloatArray:
@@ -75,14 +87,30 @@ def _frozen(a: FloatArray) -> FloatArray:
     return out
 
 
-def _pinv_psd(s: FloatArray) -> FloatArray:
-    """Pseudo-inverses of a stack of symmetric PSD matrices (..., n, n) through eigenvalues."""
-    w, v = np.linalg.eigh(0.5 * (s + np.swapaxes(s, -1, -2)))
-    top = w.max(axis=-1, keepdims=True, initial=0.0)
-    keep = (w > _PINV_RTOL * top) & (top > 0.0)
-    inv_w = np.where(keep, 1.0 / np.where(keep, w, 1.0), 0.0)
-    out: FloatArray = (v * inv_w[..., None, :]) @ np.swapaxes(v, -1, -2)
-    return out
+def _conditional(
+    mu: FloatArray, cov: FloatArray, slots_o: list[int], slots_r: list[int], z_o: FloatArray,
+    a_r: FloatArray,
+) -> tuple[FloatArray, FloatArray, FloatArray, FloatArray]:
+    """One class's Gaussian conditional of the remaining slots, all eight components at once.
+
+    Returns the conditional mean of the remaining slots (8, r), the variance of a^T z_r (8,),
+    the Mahalanobis distance of the observed part m (8,) and the pseudo-log-determinant of
+    Sigma_oo (8,).
+    """
+    s_rr = cov[:, slots_r][:, :, slots_r]
+    mean_r = mu[:, slots_r]
+    maha = np.zeros(N_TERMS)
+    logdet = np.zeros(N_TERMS)
+    if slots_o:
+        s_ro = cov[:, slots_r][:, :, slots_o]
+        s_oo_inv, logdet = pinv_logdet(cov[:, slots_o][:, :, slots_o])
+        k_gain = s_ro @ s_oo_inv
+        dev = z_o - mu[:, slots_o]
+        mean_r = mean_r + np.einsum("cro,co->cr", k_gain, dev)
+        s_rr = s_rr - k_gain @ np.swapaxes(s_ro, 1, 2)
+        maha = np.einsum("ci,cij,cj->c", dev, s_oo_inv, dev)
+    var = np.clip(np.einsum("i,cij,j->c", a_r, s_rr, a_r), 0.0, None)
+    return mean_r, var, maha, logdet
 
 
 @dataclass(frozen=True)
@@ -135,6 +163,9 @@ class Forecast:
         One sentence saying how the figure was made.
     complete : bool
         No layer remains on either side: p_exceed is 0 or 1 from the current figure.
+    trending : array, shape (8,)
+        Per component, the posterior probability that the panel is of the trending class
+        (``trend_mixture``), given its observed layers.
     """
 
     trend_a: SideTrend
@@ -150,6 +181,7 @@ class Forecast:
     tool: str | None
     method: str
     complete: bool
+    trending: FloatArray
 
 
 def _observed(side: str, observed: Mapping[int, FloatArray], layers: int) -> dict[int, FloatArray]:
@@ -186,9 +218,12 @@ def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance)
     else:
         source = "the new-product prior from the product's own L2L capability"
     carried = f"; tool {tool}'s effect carried into the remaining layers" if tool else ""
+    mixed = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
+                      if pi > 0.0)
+    classes = f"; quiet and trending panels in {mixed}" if mixed else ""
     return (
-        f"layer-by-layer conditional forecast from {source}{carried}; {ex.n_samples} seeded "
-        f"samples (Monte Carlo standard error {ex.stderr:.3f})"
+        f"layer-by-layer conditional forecast from {source}{classes}{carried}; "
+        f"{ex.n_samples} seeded samples (Monte Carlo standard error {ex.stderr:.3f})"
     )
 
 
@@ -256,32 +291,39 @@ def forecast_final(
     tool_rem = q * tool_rem
     unknown_var = (1.0 - q) * float(len(slots_r))
 
-    mu, cov = history.mean, history.cov_without(panel_id)
+    cov_q = history.cov_without(panel_id)
     nu = history.dof
     n_o = len(slots_o)
     a_r = sign[slots_r]
-    # All eight components at once: (8, r, r), (8, r, o), (8, o, o).
-    s_rr = cov[:, slots_r][:, :, slots_r]
-    mean_r = mu[:, slots_r]
-    maha = np.zeros(N_TERMS)
-    if n_o:
-        s_ro = cov[:, slots_r][:, :, slots_o]
-        s_oo_inv = _pinv_psd(cov[:, slots_o][:, :, slots_o])
-        k_gain = s_ro @ s_oo_inv
-        dev = z_o - mu[:, slots_o]
-        mean_r = mean_r + np.einsum("cro,co->cr", k_gain, dev)
-        s_rr = s_rr - k_gain @ np.swapaxes(s_ro, 1, 2)
-        maha = np.einsum("ci,cij,cj->c", dev, s_oo_inv, dev)
-    rem_dev = mean_r + tool_rem
-    comp_mean = TO_COMPONENTS @ current + rem_dev @ a_r
-    var = np.clip(np.einsum("i,cij,j->c", a_r, s_rr, a_r), 0.0, None)
-    var = var * (nu + maha) / (nu + n_o) * (1.0 + n_o / nu)
-    var = var + unknown_var * history.tool_var + q * (1.0 - q) * carried_sum**2
-    comp_scale = np.sqrt(var)
+    # The two classes (quiet, trending) of every component: conditional mean and variance,
+    # and the t log-density of the observed part for the class posterior (up to a constant
+    # common to both classes).
+    classes = ((history.mean, cov_q),
+               (history.mean + history.trend_mean, cov_q + history.trend_cov))
+    means, variances, logliks, mean_rs = [], [], [], []
+    for mu_j, cov_j in classes:
+        mean_r, var, maha, logdet = _conditional(mu_j, cov_j, slots_o, slots_r, z_o, a_r)
+        logliks.append(-0.5 * logdet - 0.5 * (nu + n_o) * np.log1p(maha / nu))
+        var = var * (nu + maha) / (nu + n_o) * (1.0 + n_o / nu)
+        var = var + unknown_var * history.tool_var + q * (1.0 - q) * carried_sum**2
+        means.append(TO_COMPONENTS @ current + (mean_r + tool_rem) @ a_r)
+        variances.append(var)
+        mean_rs.append(mean_r)
+    pi = history.trend_share
+    with np.errstate(divide="ignore"):
+        logit = np.log(pi) - np.log1p(-pi) + group_total(logliks[1] - logliks[0])
+    trending = np.where(pi > 0.0, 1.0 / (1.0 + np.exp(-np.clip(logit, -700.0, 700.0))), 0.0)
+    rem_dev = (1.0 - trending)[:, None] * mean_rs[0] + trending[:, None] * mean_rs[1] + tool_rem
+    comp_means = np.stack(means)  # (2, 8)
+    comp_scales = np.sqrt(np.stack(variances))
+    comp_mean = (1.0 - trending) * comp_means[0] + trending * comp_means[1]
     dof = nu + n_o
+    t_factor = dof / (dof - 2.0) if dof > 3.0 else 3.0
+    second = ((1.0 - trending) * (comp_scales[0] ** 2 * t_factor + comp_means[0] ** 2)
+              + trending * (comp_scales[1] ** 2 * t_factor + comp_means[1] ** 2))
+    t_var = np.clip(second - comp_mean**2, 0.0, None)
 
     final_mean = FROM_COMPONENTS @ comp_mean
-    t_var = comp_scale**2 * (dof / (dof - 2.0) if dof > 3.0 else 3.0)
     final_cov = FROM_COMPONENTS @ np.diag(t_var) @ FROM_COMPONENTS.T
     complete = not slots_r
     if complete:
@@ -298,7 +340,13 @@ def forecast_final(
             # (their parameter uncertainty comes from the same panels).
             normal = rng.standard_normal((n, N_TERMS))
             chi = rng.chisquare(dof, (n, 1)) / dof
-            comps = comp_mean + comp_scale * normal / np.sqrt(chi)
+            # Each trend group's class (quiet or trending, by its posterior), then the t; the
+            # components of one group (Tx and Ty) share the draw.
+            pick = np.zeros((n, N_TERMS), dtype=np.intp)
+            if np.any(trending > 0.0):
+                pick = (rng.random((n, N_TERMS))[:, GROUP_OF] < trending).astype(np.intp)
+            cols = np.arange(N_TERMS)
+            comps = comp_means[pick, cols] + comp_scales[pick, cols] * normal / np.sqrt(chi)
             out: FloatArray = comps @ FROM_COMPONENTS.T
             return out
 
@@ -318,8 +366,8 @@ def forecast_final(
         if mine:
             per_layer = rem_dev[:2, mine].mean(axis=1)
         else:
-            per_layer = mu[:2, s * layers:(s + 1) * layers].mean(axis=1)
-        base = mu[:2, s * layers:(s + 1) * layers].mean(axis=1)
+            per_layer = history.mean[:2, s * layers:(s + 1) * layers].mean(axis=1)
+        base = history.mean[:2, s * layers:(s + 1) * layers].mean(axis=1)
         own = obs_mean - base
         size = float(own @ own)
         weight = float(np.clip((per_layer - base) @ own / size, 0.0, 1.0)) if size > 0 else 0.0
@@ -334,5 +382,5 @@ def forecast_final(
         final_mean_terms=_frozen(final_mean), final_cov_terms=_frozen(final_cov),
         exceedance=exceedance, final_worst_um=float(exceedance.worst_mean_um), band_um=(lo, hi),
         p_exceed=float(exceedance.p_exceed), p_stderr=float(exceedance.stderr), tool=carried,
-        method=method, complete=complete,
+        method=method, complete=complete, trending=_frozen(trending),
     )

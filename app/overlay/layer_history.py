@@ -34,9 +34,12 @@ Learning, from the caller's window of the product's panels
 - Posterior, n complete panels (normal-inverse-Wishart, prior worth ``PRIOR_PANELS`` panels:
   Gelman et al., *Bayesian Data Analysis*, 3rd ed., section 3.6):
   mu = n / (n + k0) zbar, Sigma = (nu0 Sigma0 + S + k0 n / (k0 + n) zbar zbar^T) / (nu0 + n),
-  with S = n S_shrunk, S_shrunk the sample covariance shrunk toward the prior's structure
-  (``_shrunk_covariance``). The path from prior to history is smooth in n (credibility), with
-  no switch at a panel count.
+  with zbar the quiet mean, S = n S_shrunk, S_shrunk the quiet panels' sample covariance
+  shrunk toward the prior's structure (``trend_mixture.shrinkage_intensity``). The path from
+  prior to history is smooth in n (credibility), with no switch at a panel count.
+- Quiet and trending panels (``trend_mixture``): Sigma and mu above are the quiet class's; a
+  share pi of panels (learned by EM from the complete panels, 0 with none) adds a per-side
+  offset and layer-index trend, ``trend_mean`` and ``trend_cov``.
 """
 
 from __future__ import annotations
@@ -49,6 +52,7 @@ import numpy as np
 from app.overlay.errors import OverlayInputError
 from app.overlay.frames import mirror_terms
 from app.overlay.model import N_TERMS, FloatArray
+from app.overlay.trend_mixture import fit_trend_mixture
 
 #: Persistent offset of the prior: tau = PRIOR_OFFSET_LAYERS / L (see the module docstring).
 PRIOR_OFFSET_LAYERS: Final = 1.0
@@ -94,10 +98,10 @@ class ProductHistory:
     layers : int
         L, layers per side; slots are A1..AL then B1..BL (2L).
     mean : array, shape (8, 2L)
-        Expected deviation of each slot, tool effects removed.
+        Expected deviation of each slot for a quiet panel, tool effects removed.
     data_scatter : array, shape (8, 2L, 2L)
-        S + k0 n / (k0 + n) zbar zbar^T of the complete panels (zeros with none); Sigma is
-        ``cov_without(panel)``.
+        S + k0 n / (k0 + n) zbar zbar^T of the complete panels' expected quiet parts (zeros
+        with none; ``trend_mixture``); the quiet Sigma is ``cov_without(panel)``.
     n_complete : int
         Complete panels behind ``mean`` and ``cov`` (0: prior only).
     dof : float
@@ -128,6 +132,11 @@ class ProductHistory:
         of their deviations from the layer means (the persistence statistic).
     pair_count : array, shape (N,)
         Number of those pairs.
+    trend_share : array, shape (8,)
+        pi, the prior probability that a panel trends in that component
+        (``trend_mixture``; 0 with no complete panel).
+    trend_mean, trend_cov : arrays, shapes (8, 2L) and (8, 2L, 2L)
+        What the trending class adds to ``mean`` and to the quiet covariance.
     """
 
     layers: int
@@ -147,6 +156,9 @@ class ProductHistory:
     panel_values: FloatArray
     pair_sum: FloatArray
     pair_count: FloatArray
+    trend_share: FloatArray
+    trend_mean: FloatArray
+    trend_cov: FloatArray
 
     @property
     def source(self) -> str:
@@ -245,30 +257,6 @@ def prior_cov(w: FloatArray, b: FloatArray, layers: int) -> FloatArray:
 
 def _components(terms: FloatArray) -> FloatArray:
     out: FloatArray = terms @ TO_COMPONENTS.T
-    return out
-
-
-def _shrunk_covariance(centred: FloatArray, target: FloatArray) -> FloatArray:
-    """Sample covariance shrunk toward a structured target, per component (8, p, p).
-
-    S = lambda T + (1 - lambda) S_sample with the estimated optimal intensity
-    lambda = sum_ij Var(s_ij) / sum_ij (s_ij - t_ij)^2, clipped to [0, 1], Var(s_ij) from
-    the products w_kij = x_ki x_kj of the centred data (Schafer and Strimmer, "A shrinkage
-    approach to large-scale covariance matrix estimation", Stat. Appl. Genet. Mol. Biol. 4,
-    2005, eq. 10 and section 2.3; the idea is Ledoit and Wolf's). With 24 layers and a few
-    hundred panels the sample covariance is noisy enough that its regression of the remaining
-    layers on the observed ones over-extrapolates some panels; the target is the prior's
-    structure (capability and persistence of the same panels).
-    """
-    n = centred.shape[0]
-    if n < 2:  # one panel has no sample covariance: the target alone
-        return np.array(target, dtype=np.float64)
-    w = np.einsum("nci,ncj->ncij", centred, centred)
-    sample = w.sum(axis=0) / (n - 1.0)
-    var_s = n / (n - 1.0) ** 3 * np.sum((w - w.mean(axis=0)) ** 2, axis=0)
-    gap = np.sum((sample - target) ** 2, axis=(1, 2))
-    lam = np.clip(np.sum(var_s, axis=(1, 2)) / np.where(gap > 0.0, gap, np.inf), 0.0, 1.0)
-    out: FloatArray = lam[:, None, None] * target + (1.0 - lam[:, None, None]) * sample
     return out
 
 
@@ -372,16 +360,19 @@ def learn_history(
     n_c = int(complete.sum())
     if n_c == 0:
         mean, data = np.zeros((N_TERMS, d)), np.zeros((N_TERMS, d, d))
+        trend_share, trend_mean, trend_cov = np.zeros(N_TERMS), mean, data
     else:
         z = values[complete]  # (n, 8, d)
-        zbar = z.mean(axis=0)
         w_all = _capability(rows, s1, s2, np.asarray(limit_var, dtype=np.float64))
         b_all = _persistence(pair_sum.sum(axis=0), float(pair_count.sum()), w_all,
                              PRIOR_OFFSET_LAYERS / big_l, big_l)
-        shrunk = _shrunk_covariance(z - zbar, prior_cov(w_all, b_all, big_l))
-        k0 = PRIOR_PANELS
-        mean = n_c / (n_c + k0) * zbar
-        data = n_c * shrunk + (k0 * n_c / (k0 + n_c)) * np.einsum("ci,cj->cij", zbar, zbar)
+        mixture = fit_trend_mixture(z, prior_cov(w_all, b_all, big_l), big_l,
+                                    prior_panels=PRIOR_PANELS)
+        mean = n_c / (n_c + PRIOR_PANELS) * mixture.quiet_mean
+        data = mixture.quiet_scatter
+        trend_share = mixture.share
+        trend_mean = mixture.trend_mean(big_l)
+        trend_cov = mixture.trend_cov(big_l)
     return ProductHistory(
         layers=big_l, mean=_frozen(mean), data_scatter=_frozen(data),
         n_complete=n_c, dof=PRIOR_PANELS + n_c, tool_effects=effects,
@@ -391,4 +382,6 @@ def learn_history(
         limit_var=_frozen(np.asarray(limit_var, dtype=np.float64)),
         panel_ids=tuple(panel_ids), panel_values=_frozen(values),
         pair_sum=_frozen(pair_sum), pair_count=_frozen(pair_count),
+        trend_share=_frozen(trend_share), trend_mean=_frozen(trend_mean),
+        trend_cov=_frozen(trend_cov),
     )

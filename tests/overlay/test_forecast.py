@@ -152,6 +152,33 @@ def test_tool_bias_is_learned_in_the_tools_own_frame():
         np.testing.assert_allclose(effect - others, bias[:2], atol=0.2)
 
 
+def test_tool_effect_is_carried_into_the_remaining_layers_in_the_tools_own_frame():
+    # A bias of +1.5 um in x and -0.8 um in y in the tool's own frame on both sides. Side B is
+    # turned about y, so in the panel frame side B's x bias is -1.5: front to back the x bias
+    # adds up over both sides' remaining layers, the y bias cancels (conventions.md, frames).
+    bias = np.array([1.5, -0.8, 0, 0, 0, 0, 0, 0])
+    t, present, tool, names, ids = panels(600, tools=3, layer_sd=1.0, offset_sd=0.0)
+    tool[:300] = tool[:300, :1, :1]  # half the panels kept on one tool for every layer
+    for s, side in enumerate(("A", "B")):
+        t[:, s] += np.where((tool[:, s] == 0)[..., None],
+                            mirror_terms(bias, side=side, flip_axis="y"), 0.0)
+    h = learn(t, present, tool, names, ids)
+    zero = {1: np.zeros(8)}
+    means = {}
+    for name in ("T0", "T1"):
+        f = forecast_final(observed_a=zero, observed_b=zero, tools_a={1: name},
+                           tools_b={1: name}, history=h, points_mm=CENTRE, ftb_limit_um=50.0)
+        assert f.tool == name
+        means[name] = f.final_mean_terms
+    q = h.tool_kept[2]
+    remaining = 2 * (L - 1)
+    effect = h.tool_effects["T0"][:, :2] - h.tool_effects["T1"][:, :2]  # (side, x/y), tool frame
+    gap = means["T0"][:2] - means["T1"][:2]
+    assert gap[0] == pytest.approx(q * remaining * effect[:, 0].mean(), rel=0.05)
+    assert gap[0] == pytest.approx(q * remaining * bias[0], rel=0.25)
+    assert abs(gap[1]) < 0.1 * q * remaining * abs(bias[1])
+
+
 def _history(n=3000, **kw):
     return learn(*panels(n, **kw))
 

@@ -65,6 +65,7 @@ def forecast(
         tool=None,
         method="test",
         complete=not a.remaining_layers and not b.remaining_layers,
+        trending=np.zeros(8),
     )
 
 
