@@ -76,7 +76,7 @@ def hold_command(
     out.print(f"hold {hold.id} placed on {hold.panel} by {hold.held_by}")
 
 
-def dispose_command(
+def disposition_command(
     hold_id: Annotated[str, typer.Argument(help="The hold id, or its first characters")],
     action: Annotated[str, typer.Option(help="release, scrap or rework")],
     note: Annotated[str, typer.Option(help="Why, and on whose authority")],
@@ -105,7 +105,7 @@ def dispose_command(
     except DomainError as exc:
         fail(exc)
     out.print(f"hold {hold.id} on {hold.panel} closed: {hold.disposition} by "
-              f"{hold.disposed_by}")
+              f"{hold.disposition_by}")
     if hold.rework:
         out.print(f"layer {hold.rework.layer} side {hold.rework.side} set aside; its next "
                   "measurement takes its place, and the panel's risk was recomputed")

@@ -10,7 +10,7 @@ from rich.table import Table
 from app.schemas.holds import CAUTION, HoldList
 from app.schemas.panels import PanelRead
 from app.schemas.records import AuditPage, RejectedUploadPage
-from app.views.text import reached
+from app.views.text import missing, reached
 
 RISK_STYLE = {"clear": "green", "watch": "yellow", "at_risk": "bold red",
               "over_limit": "bold white on red"}
@@ -23,10 +23,11 @@ def _p(value: float | None) -> str:
 
 def print_panel(console: Console, p: PanelRead) -> None:
     console.print(f"[bold]{p.serial}[/bold]  product {p.product}  lot {p.lot}  "
-                  f"status {p.status}  risk [{RISK_STYLE[p.risk]}]{p.risk}[/]")
+                  f"status {p.status}  risk [{RISK_STYLE[p.risk]}]{p.risk}[/] "
+                  f"(rule {p.risk_rule})")
+    gaps = missing(p.missing_layers)
     console.print(f"layers reached {reached(p.layers_reached)}"
-                  f"{'  missing A ' + str(p.missing_layers.A) if p.missing_layers.A else ''}"
-                  f"{'  missing B ' + str(p.missing_layers.B) if p.missing_layers.B else ''}")
+                  + (f"; missing {gaps}" if gaps else ""))
     x, y = p.ftb_current_at_mm
     console.print(f"current FTB {p.ftb_current_um:.1f} um at ({x:.1f}, {y:.1f}) mm; "
                   f"worst L2L {p.l2l_worst_um:.1f} um")
@@ -56,7 +57,7 @@ def print_closest(console: Console, panels: list[tuple[PanelRead, float]], title
     console.print(table)
 
 
-#: The terminal shows a hold id by its first characters; commands take them (``dispose``).
+#: The terminal shows a hold id by its first characters; commands take them (``disposition``).
 SHORT_ID = 8
 
 
@@ -82,8 +83,8 @@ def print_holds(console: Console, hold_list: HoldList, *, closed: bool = False) 
             f"{h.ftb_current_um:.1f}",
         ]
         held = [h.held_since.strftime("%Y-%m-%d %H:%M"), h.held_by]
-        row += [*held, h.disposition or "-", h.disposed_by or "-",
-                h.disposed_at.strftime("%Y-%m-%d %H:%M") if h.disposed_at else "-"] if closed \
+        when = h.disposition_at.strftime("%Y-%m-%d %H:%M") if h.disposition_at else "-"
+        row += [*held, h.disposition or "-", h.disposition_by or "-", when] if closed \
             else [forecast, _p(h.p_final_over_limit), *held]
         table.add_row(*row)
     console.print(table)

@@ -105,7 +105,7 @@ def test_supervisor_holds_and_disposes_from_the_terminal(env):
     r = CliRunner().invoke(cli, ["holds"])
     assert r.exit_code == 0 and "Open holds: 1" in r.stdout and hold_id[:8] in r.stdout
     assert "suspect [bold]lamination" in r.stdout  # text as typed, not markup
-    r = CliRunner().invoke(cli, ["dispose", hold_id[:8], "--action", "release",
+    r = CliRunner().invoke(cli, ["disposition", hold_id[:8], "--action", "release",
                                  "--note", "re-inspected, fine", "--by", "Shift lead A"])
     assert r.exit_code == 0, r.output
     assert f"hold {hold_id} on P1 closed: release by cli: Shift lead A" in r.stdout
@@ -117,7 +117,7 @@ def test_supervisor_holds_and_disposes_from_the_terminal(env):
 
     actions = [e["action"] for e in audit.list_for(db=env, subject="P1")]
     assert actions[-2:] == ["hold", "disposition_release"]
-    again = CliRunner().invoke(cli, ["dispose", hold_id[:8], "--action", "scrap", "--note",
+    again = CliRunner().invoke(cli, ["disposition", hold_id[:8], "--action", "scrap", "--note",
                                      "too late", "--by", "x"])
     assert again.exit_code == 2 and "no open hold" in again.stderr
     bad = CliRunner().invoke(cli, ["hold", "P1", "--reason", "x", "--by", "y"])
@@ -158,10 +158,10 @@ def test_rework_from_the_terminal_names_its_layer_and_side(env, tmp_path):
     assert CliRunner().invoke(cli, ["import", str(path)]).exit_code == 0
     hold_id = CliRunner().invoke(cli, ["holds", "--csv"]).stdout.splitlines()[1].split(",")[-1]
     hold_id = hold_id.strip('"')
-    missing = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--note",
+    missing = CliRunner().invoke(cli, ["disposition", hold_id, "--action", "rework", "--note",
                                        "strip layer 2", "--by", "lead"])
     assert missing.exit_code == 2 and "layer and the side" in missing.stderr
-    r = CliRunner().invoke(cli, ["dispose", hold_id, "--action", "rework", "--layer", "2",
+    r = CliRunner().invoke(cli, ["disposition", hold_id, "--action", "rework", "--layer", "2",
                                  "--side", "A", "--note", "strip layer 2", "--by", "lead"])
     assert r.exit_code == 0, r.output
     assert "layer 2 side A set aside" in r.stdout

@@ -430,7 +430,7 @@ def _readme(
     summary: ScenarioSummary, seed: int, span: tuple[str, str], story: dict[str, list[_Panel]]
 ) -> str:
     table = [
-        f"| {p.serial} | {p.product.code} | {p.reached['A']}/{p.reached['B']} | {kind} | "
+        f"| {p.serial} | {p.product.code} | A {p.reached['A']} / B {p.reached['B']} | {kind} | "
         f"{p.note} | {p.ftb_now_um:.1f} | {p.worst_l2l_um:.1f} | {INTENDED_LEVEL[kind]} |"
         for kind in INTENDED_LEVEL
         for p in story[kind]
@@ -460,7 +460,7 @@ serials and exposure tools are fiction.
   Side A in frame `facing_side` (= panel); side B in frame `facing_side` (as the tools
   see it), except lot L26-4804, whose side B is posted in frame `panel`. Side A has
   reached layer 2..12, side B the same layer or one behind; {summary.complete_panels} panels
-  are complete (12/12).
+  are complete (A 12 / B 12).
 
 ## The story
 
@@ -469,18 +469,19 @@ Normal layers: translation sigma {TRANSLATION_SIGMA_UM} um, scale {SCALE_SIGMA_P
 kept within {IN_CONTROL_SHARE:.0%} of the L2L limit; C75 grows a small trapezoid from layer \
 {TRAPEZOID_FROM_LAYER}. Most panels are clear.
 
-Tool bias: {BIASED_TOOL} drifts {rate} um/day in x and in y of its own tool frame since {onset}.
+Exposure-tool bias: {BIASED_TOOL} drifts {rate} um/day in x and in y of its own (facing-side)
+frame since {onset}.
 Lots L26-4803 (C55) and L26-4806 (C75) run both sides there, so the bias adds up front to back:
 along x on C55 (flip y), along y on C75 (flip x); the other axis cancels. Panels with at least
 {BIAS_LISTING_UM:.0f} um of it in today's FTB (clear to at_risk, depending on their own scatter):
 
 {biased}
 
-Panels made risky on purpose (drift: +d a layer on side A, -d on side B, panel frame). FTB now
-and worst L2L are the worst over the check points, in um, from the simulated terms before site
-noise; the app's fitted figures differ by a little.
+Panels made risky on purpose (drift: +d a layer on side A, -d on side B, panel frame). Current
+FTB and worst L2L are the worst over the check points, in um, from the simulated terms before
+site noise; the app's fitted figures differ by a little.
 
-| panel | product | layers A/B | kind | what | FTB now | worst L2L | intended |
+| panel | product | layers reached | scenario | what | current FTB | worst L2L | intended level |
 |---|---|---|---|---|---|---|---|
 {chr(10).join(table)}
 

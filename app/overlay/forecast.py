@@ -217,7 +217,7 @@ def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance)
         source = f"product history of {history.n_complete} complete panels"
     else:
         source = "the new-product prior from the product's own L2L capability"
-    carried = f"; tool {tool}'s effect carried into the remaining layers" if tool else ""
+    carried = f"; exposure tool {tool}'s effect carried into the remaining layers" if tool else ""
     mixed = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
                       if pi > 0.0)
     classes = f"; quiet and trending panels in {mixed}" if mixed else ""

@@ -174,7 +174,7 @@ def _direction(vx: float, vy: float) -> str:
     ):
         if abs(angle - axis_angle) <= _AXIS_SNAP_DEG:
             return label
-    return f"{angle % 360.0:.0f} deg from +x ({vx:+.1f} um in x, {vy:+.1f} um in y)"
+    return f"{angle % 360.0:.0f} deg from +x, {vx:+.1f} um in x and {vy:+.1f} um in y"
 
 
 def _layers(n: int) -> str:
@@ -199,27 +199,30 @@ def _chance(p: float) -> str:
     return f"a {_pct(p)} chance"
 
 
+def _so_far(n: int) -> str:
+    return "its one layer so far" if n == 1 else f"its {n} layers so far"
+
+
 def _drift_reason(side: str, trend: SideTrend) -> str:
     vx, vy = trend.observed_per_layer_um
     n_obs = len(trend.observed_layers)
     size = math.hypot(vx, vy)
     if size < _NO_DRIFT_UM:
-        head = f"Side {side} has not moved one way over its {_layers(n_obs)} so far"
+        head = f"Side {side} has not moved one way over {_so_far(n_obs)}"
     else:
         head = (
             f"Side {side} has moved {size:.1f} um a layer toward {_direction(vx, vy)} "
-            f"(panel frame) over its {_layers(n_obs)} so far"
+            f"(panel frame) over {_so_far(n_obs)}"
         )
     n_rem = len(trend.remaining_layers)
     if n_rem == 0:
         return f"{head}; it has no layers to come."
     px, py = trend.per_layer_um
     expect = math.hypot(px, py)
-    toward = f" toward {_direction(px, py)}" if expect >= _NO_DRIFT_UM else ""
-    return (
-        f"{head}; each of its {_layers(n_rem)} to come is expected to add "
-        f"{expect:.1f} um{toward}."
-    )
+    each = "its one layer to come" if n_rem == 1 else f"each of its {n_rem} layers to come"
+    if expect < _NO_DRIFT_UM:
+        return f"{head}; {each} is expected to add nothing on average."
+    return f"{head}; {each} is expected to add {expect:.1f} um toward {_direction(px, py)}."
 
 
 def _remaining_phrase(forecast: Forecast) -> str:
@@ -227,6 +230,9 @@ def _remaining_phrase(forecast: Forecast) -> str:
     n_a, n_b = len(a.remaining_layers), len(b.remaining_layers)
     if n_a == n_b:
         text = f"With {_layers(n_a)} to come on each side"
+    elif n_a == 0 or n_b == 0:
+        busy, n = ("B", n_b) if n_a == 0 else ("A", n_a)
+        text = f"With {_layers(n)} to come on side {busy} and none on side {'AB'[busy == 'A']}"
     else:
         text = f"With {_layers(n_a)} to come on side A and {n_b} on side B"
     missing = []
@@ -246,10 +252,10 @@ def _forecast_reasons(
 ) -> list[str]:
     limit = thresholds.ftb_limit_um
     if forecast.complete:
-        return [
-            f"Every layer is on: the final FTB is {forecast.final_worst_um:.1f} um against the "
-            f"{limit:g} um limit."
-        ]
+        final = forecast.final_worst_um
+        against = (f"{final - limit:.1f} um over the {limit:g} um limit" if final > limit
+                   else f"{_pct(final / limit)} of the {limit:g} um limit")
+        return [f"Every layer is on: the final FTB is {final:.1f} um, {against}."]
     reasons = [
         _drift_reason(side, trend)
         for side, trend in (("A", forecast.trend_a), ("B", forecast.trend_b))
@@ -290,7 +296,7 @@ def _landing(c: InterfaceCapture) -> str:
         return "; the via bottom is off its pad entirely (an open)"
     share = c.overlap_fraction or 0.0
     return (
-        f"; {share:.0%} of the via bottom stays on its pad, so its contact resistance is "
+        f"; {_pct(share)} of the via bottom stays on its pad, so its contact resistance is "
         f"about {ratio:.1f} x the usual (via area over overlap, first-order)"
     )
 
@@ -312,14 +318,14 @@ def _capture_reasons(
                 f"to {c.model_se_um:.1f} um there){_landing(c)}."
             )
             continue
-        for rule, level in (
-            ("via_miss_at_risk", thresholds.p_at_risk),
-            ("via_miss_watch", thresholds.p_watch),
+        for rule, level, name in (
+            ("via_miss_at_risk", thresholds.p_at_risk, "at-risk"),
+            ("via_miss_watch", thresholds.p_watch, "watch"),
         ):
             if c.p_miss >= level:
                 fired.setdefault(rule, []).append(
                     f"Vias on layer {c.layer} {where} have {_chance(c.p_miss)} of "
-                    f"missing part of their pad{_at(c.p_miss_at_mm)} (threshold "
+                    f"missing part of their pad{_at(c.p_miss_at_mm)} ({name} threshold "
                     f"{_pct(level)}): the layer sits up to {c.worst_um:.1f} um off the layer "
                     f"beneath, against a capture margin of {c.margin_um:.1f} um."
                 )
@@ -431,12 +437,12 @@ def assess(
             )
     if thresholds.watch_fraction * limit <= ftb <= limit:
         fired["current_ftb_near_limit"] = [
-            f"Current FTB {ftb:.1f} um{where} is {ftb / limit:.0%} of the {limit:g} um limit "
-            f"(watched from {thresholds.watch_fraction:.0%})."
+            f"Current FTB {ftb:.1f} um{where} is {_pct(ftb / limit)} of the {limit:g} um limit "
+            f"(watched from {_pct(thresholds.watch_fraction)})."
         ]
 
     if not fired:
-        text = f"Current FTB {ftb:.1f} um{where} is {ftb / limit:.0%} of the {limit:g} um limit"
+        text = f"Current FTB {ftb:.1f} um{where} is {_pct(ftb / limit)} of the {limit:g} um limit"
         if forecast is None:
             text += "; no forecast."
         elif forecast.complete:

@@ -36,7 +36,7 @@ def _tool(report: FingerprintReport, asked: str) -> str | None:
     tools = sorted({r.exposure_tool for r in report.rows})
     if asked:
         if asked not in tools:
-            raise NotFound(f"tool '{asked}' made no run of product {report.product}",
+            raise NotFound(f"exposure tool '{asked}' made no run of product {report.product}",
                            [FieldError("no run of this tool", pointer="query:/exposure_tool")])
         return asked
     if report.what_if:
@@ -54,7 +54,7 @@ def _fingerprint_maps(product: ProductRead, row: FingerprintRow, side: str) -> d
         maps[kind] = charts.vector_map_svg(
             fingerprint_arrows(figures, product.check_points_mm),
             width_mm=product.panel_width_mm, height_mm=product.panel_height_mm,
-            title=f"{row.exposure_tool}, side {side}, {layer}: {words}, tool frame",
+            title=f"{row.exposure_tool}, side {side}, {layer}: {words}, facing-side frame",
             ident=f"fingerprint-{kind}", colour=colour, size_px=440, what=words,
             seen_from=f"side {side}")
     return maps

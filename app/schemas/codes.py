@@ -26,17 +26,18 @@ HOLD_RULES: Final = (
     ("via_off_pad", "A layer's L2L offset runs past its vias' capture margin by more than two "
                     "fit standard errors (over_limit)."),
     ("l2l_over_limit", "A layer's worst L2L is over the L2L limit by more than two fit "
-                       "standard errors (over_limit)."),
+                       "standard errors; for products without via settings (over_limit)."),
     ("forecast_at_risk", "The chance that the final FTB ends over the limit reached the "
-                         "at-risk threshold (at_risk)."),
+                         "at-risk threshold, or has not yet fallen below its leave "
+                         "threshold (at_risk)."),
     ("via_miss_at_risk", "The chance that a via misses part of its pad reached the at-risk "
                          "threshold (at_risk)."),
     ("forecast_watch", "The chance that the final FTB ends over the limit reached the watch "
-                       "threshold (watch)."),
+                       "threshold, or has not yet fallen below its leave threshold (watch)."),
     ("via_miss_watch", "The chance that a via misses part of its pad reached the watch "
                        "threshold (watch)."),
-    ("current_ftb_near_limit", "The current FTB is at or above the product's watch share of "
-                               "the limit (watch)."),
+    ("current_ftb_near_limit", "The current FTB is at or above 70 % of the FTB limit "
+                               "(watch)."),
     ("clear", "No rule fired (clear)."),
     ("manual", "Held by a person, with a written reason."),
 )
@@ -44,7 +45,7 @@ HOLD_RULES: Final = (
 SEVERITIES: Final = (
     (3, "over_limit: worst; listed first."),
     (2, "at_risk."),
-    (1, "watch, or a manual hold on a clear panel."),
+    (1, "A manual hold on a clear or watched panel."),
 )
 
 PANEL_STATUSES: Final = (
@@ -73,8 +74,8 @@ DISPOSITIONS: Final = (
 
 FRAMES: Final = (
     ("facing_side", "Site coordinates and vectors as seen facing the measured side (how the "
-                    "metrology and exposure tools see it). On side A this is the panel frame; "
-                    "side B is mirrored into the panel frame."),
+                    "metrology and exposure tools see it; the exposure tool's own frame). On "
+                    "side A this is the panel frame; side B is mirrored into the panel frame."),
     ("panel", "Already in the panel frame: as seen facing side A, origin at the panel "
               "centre."),
 )

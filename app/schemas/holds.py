@@ -83,12 +83,13 @@ class HoldRead(BaseModel):
         description="Probability that the final FTB ends over the FTB limit.")
     reason: str = Field(description="Why the panel is held, in plain words with the figures.")
     held_since: datetime
-    held_by: str = Field(description="The rule's engine ('stackledger') or the key's label.")
+    held_by: str = Field(description="'stackledger (automatic)' for a rule's hold, else the "
+                         "label of the key (or the CLI's --by) that put it on.")
     disposition: Literal["release", "scrap", "rework"] | None = Field(
         default=None, **codes.explained("What was decided (closed holds).", codes.DISPOSITIONS))
-    disposition_note: str | None = None
-    disposed_at: datetime | None = None
-    disposed_by: str | None = None
+    disposition_note: str | None = Field(default=None, description="Why, as recorded.")
+    disposition_at: datetime | None = Field(default=None, description="When it was recorded.")
+    disposition_by: str | None = Field(default=None, description="Who recorded it.")
     rework: ReworkRead | None = None
 
 

@@ -152,7 +152,7 @@ def _displacement(batch: MeasurementBatch, facts: list[PanelFacts | None],
     for r in np.flatnonzero(rows & (length > limit)):
         yield Problem(int(owner[r]), int(seq[r]), "dx_um",
                       f"displacement of {length[r]:.1f} um is over {limit:.0f} um (1 mm): a "
-                      "tool or unit error, not overlay")
+                      "metrology or unit error, not overlay")
 
 
 def _on_panel(batch: MeasurementBatch, facts: list[PanelFacts | None],

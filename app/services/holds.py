@@ -44,16 +44,26 @@ AUTOMATIC: Final = "stackledger (automatic)"
 
 
 def _figures(state: PanelEstimate) -> dict[str, Any]:
+    """The panel's figures kept with a hold and its audit entries, under the API's names
+    (docs/glossary.md)."""
     forecast = state.forecast
     return {
-        "ftb_worst_um": state.ftb_worst_um,
-        "p_exceed": state.p_exceed,
-        "final_worst_um": forecast.final_worst_um if forecast else None,
-        "band_um": list(forecast.band_um) if forecast else None,
+        "ftb_current_um": state.ftb_worst_um,
+        "p_final_over_limit": state.p_exceed,
+        "ftb_final_forecast_um": forecast.final_worst_um if forecast else None,
+        "ftb_final_band_um": {"low_um": forecast.band_um[0], "high_um": forecast.band_um[1]}
+        if forecast else None,
         "l2l_worst_um": state.l2l_worst_um,
-        "layers": {"A": max(state.layers_a, default=0), "B": max(state.layers_b, default=0)},
+        "layers_reached": {"A": max(state.layers_a, default=0),
+                           "B": max(state.layers_b, default=0)},
         "risk": state.risk,
     }
+
+
+def _figure(figures: dict[str, Any], name: str, before_0008: str) -> float:
+    """A kept figure; holds kept before migration 0008 name it as they did then (the audit
+    trail is never rewritten)."""
+    return float(figures.get(name, figures.get(before_0008)) or 0.0)
 
 
 def _open_hold(session: Session, serial: str) -> Hold | None:
@@ -72,8 +82,8 @@ def _worse_than_release(session: Session, serial: str, rule: str, state: PanelEs
     if released is None:
         return True
     at_release = released.figures.get("at_release", released.figures)
-    p_then = at_release.get("p_exceed") or 0.0
-    ftb_then = at_release.get("ftb_worst_um") or 0.0
+    p_then = _figure(at_release, "p_final_over_limit", "p_exceed")
+    ftb_then = _figure(at_release, "ftb_current_um", "ftb_worst_um")
     return (state.p_exceed or 0.0) > p_then or state.ftb_worst_um > ftb_then
 
 
@@ -127,7 +137,7 @@ def _to_read(row: Row[Any]) -> HoldRead:
         p_final_over_limit=p_exceed,
         reason=hold.reason, held_since=hold.held_at, held_by=hold.held_by,
         disposition=hold.disposition, disposition_note=hold.disposition_note,
-        disposed_at=hold.disposed_at, disposed_by=hold.disposed_by,
+        disposition_at=hold.disposed_at, disposition_by=hold.disposed_by,
         rework=hold.figures.get("rework") if hold.disposition == "rework" else None,
     )
 

@@ -97,10 +97,13 @@ def audit_details(details: dict[str, Any]) -> str:
         parts.append(f"“{note}”")
     if rework := details.get("rework"):
         parts.append(f"rework side {rework.get('side')} layer {rework.get('layer')}")
-    if details.get("ftb_worst_um") is not None:
-        parts.append(f"FTB {details['ftb_worst_um']:.1f} µm")
-    if details.get("p_exceed") is not None:
-        parts.append(f"p {probability(details['p_exceed'])}")
+    # Entries written before migration 0008 name the figures as they did then.
+    ftb = details.get("ftb_current_um", details.get("ftb_worst_um"))
+    if ftb is not None:
+        parts.append(f"current FTB {ftb:.1f} µm")
+    p = details.get("p_final_over_limit", details.get("p_exceed"))
+    if p is not None:
+        parts.append(f"P(final over limit) {probability(p)}")
     if rule := details.get("rule"):
         parts.append(f"rule {rule_words(rule)}")
     for key in ("product", "lot"):

@@ -119,7 +119,7 @@ def test_disposition_roles_notes_and_audit(setup):
                   headers=k.headers("supervisor")).status_code == 422
     r = c.post(url, json=body, headers=k.headers("supervisor"))
     assert r.status_code == 200
-    assert r.json()["disposed_by"] == "test supervisor"
+    assert r.json()["disposition_by"] == "test supervisor"
     assert c.post(url, json=body, headers=k.headers("supervisor")).status_code == 409
     panel = c.get("/api/v1/panels/DRIFT", headers=k.headers("engineer")).json()
     assert panel["status"] == "scrapped"
@@ -132,9 +132,9 @@ def test_disposition_roles_notes_and_audit(setup):
     scrap = entries[-1]
     assert scrap["actor"] == "test supervisor"
     assert scrap["details"]["note"] == body["note"]
-    assert scrap["details"]["ftb_worst_um"] == pytest.approx(24.0, abs=1e-3)
+    assert scrap["details"]["ftb_current_um"] == pytest.approx(24.0, abs=1e-3)
     assert entries[1]["actor"] == "stackledger (automatic)"
-    assert entries[1]["details"]["p_exceed"] >= 0.2
+    assert entries[1]["details"]["p_final_over_limit"] >= 0.2
 
 
 def test_rework_sets_the_named_layer_aside_and_its_remeasurement_restores_it(setup):
@@ -164,7 +164,7 @@ def test_rework_sets_the_named_layer_aside_and_its_remeasurement_restores_it(set
     entry = audit.list_for(db=db, subject="DRIFT")[-1]
     assert entry["action"] == "disposition_rework"
     assert entry["details"]["rework"]["layer"] == 4
-    assert entry["details"]["after_rework"]["ftb_worst_um"] == pytest.approx(21.0, abs=1e-9)
+    assert entry["details"]["after_rework"]["ftb_current_um"] == pytest.approx(21.0, abs=1e-9)
     state = _post(c, k, "DRIFT", 4, "B", 3.0, minutes=3000)  # reworked: now back toward zero
     assert state["ftb_current_um"] == pytest.approx(18.0, abs=5e-4)
     assert state["layers_reached"]["B"] == 4 and state["missing_layers"]["B"] == []

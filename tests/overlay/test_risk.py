@@ -134,7 +134,7 @@ def test_current_ftb_rules(ftb: float, level: str, rule: str) -> None:
     assert f"{ftb:.1f} um" in text
     assert "60 um" in text
     if rule == "current_ftb_near_limit":
-        assert "70%" in text
+        assert "70 %" in text
         assert "(229.5, -231.8) mm" in text
 
 
@@ -195,7 +195,7 @@ def test_via_off_pad_uses_the_capture_margin() -> None:
     reason = result.reasons[0]
     assert reason.startswith("Via on layer 5 side B can miss its pad by 3.2 um at (229.5, 231.8)")
     assert "capture margin of 12.5 um" in reason
-    assert "90% of the via bottom" in reason and "about 1.1 x the usual" in reason
+    assert "90 % of the via bottom" in reason and "about 1.1 x the usual" in reason
     # Past the margin by less than 2 standard errors: not over, but the miss probability speaks.
     near = run(interfaces=[face(13.0, se=0.4, margin=12.5, p_miss=0.6)])
     assert (near.level, near.rule) == ("at_risk", "via_miss_at_risk")
@@ -259,7 +259,7 @@ def test_every_cause_is_listed() -> None:
     assert "Side B layer 5" in text  # the L2L cause
     assert "Side A has moved 3.0 um a layer toward +x" in text  # the drift cause
     assert "a 64 % chance of ending over it" in text  # the forecast
-    assert "75% of the 60 um limit" in text  # the near-limit cause
+    assert "75 % of the 60 um limit" in text  # the near-limit cause
 
 
 def test_no_forecast_and_complete_stack() -> None:

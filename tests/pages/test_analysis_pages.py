@@ -96,7 +96,7 @@ def test_fingerprint_page_draws_the_chosen_tool_side_and_layer(db):
 @pytest.mark.parametrize("path, status, words", [
     ("/analysis/fingerprints?product=NOPE", 404, "unknown product"),
     ("/analysis/fingerprints?product=TESTPROD&exposure_tool=NOPE", 404,
-     "tool &#39;NOPE&#39; made no"),
+     "exposure tool &#39;NOPE&#39; made no"),
     ("/analysis/fingerprints?product=TESTPROD&side=C", 422, "side must be A or B"),
     ("/analysis/fingerprints?product=TESTPROD&layer=13", 422, "layer must be a number from 1"),
     ("/analysis/fingerprints?product=TESTPROD&layer=x", 422, "layer must be a number"),

@@ -50,7 +50,7 @@ def test_supervisor_reviews_then_confirms_each_disposition(db):
         assert done.status_code == 303 and done.headers["location"].startswith(
             f"/panels/{serial}")
         closed = holds.get(db=db, hold_id=held[serial].id)
-        assert (closed.state, closed.disposition, closed.disposed_by) == (
+        assert (closed.state, closed.disposition, closed.disposition_by) == (
             "closed", form["action"], "test supervisor")
         assert closed.disposition_note == form["note"]
     trail = audit_trail.list_audit(db=db, actor="test supervisor").items

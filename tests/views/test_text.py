@@ -25,6 +25,14 @@ def test_probability_is_never_a_flat_zero_or_one():
 
 def test_first_sentence_cuts_at_a_word():
     assert text.first_sentence("Short one. Second.") == "Short one."
-    long = "Side A has moved 2.3 um a layer toward 327 deg from +x (+1.9 um in x, -1.2 um in y)"
+    long = "Side A has moved 2.3 um a layer toward 327 deg from +x, +1.9 um in x and -1.2 um in y"
     cut = text.first_sentence(long, 40)
     assert cut.endswith(" …") and len(cut) <= 42 and long.startswith(cut[:-2])
+
+
+def test_audit_details_read_the_figures_under_either_name():
+    # Entries written before migration 0008 keep their names: the trail is never rewritten.
+    new = text.audit_details({"ftb_current_um": 27.55, "p_final_over_limit": 0.16,
+                              "rule": "via_off_pad"})
+    old = text.audit_details({"ftb_worst_um": 27.55, "p_exceed": 0.16, "rule": "via_off_pad"})
+    assert new == old == "current FTB 27.6 µm; P(final over limit) 16.0 %; rule via off pad"
