@@ -40,19 +40,23 @@ class TermFigure(BaseModel):
     """A term's mean with its interval half-width (null when too few runs)."""
 
     term: TermName
-    mean: float | None
-    half_width: float | None
+    mean: float | None = Field(description="Mean of the term, raw units (um; um/mm, x 1000 for "
+                               "ppm or urad; um/mm^2).")
+    half_width: float | None = Field(description="Half-width of its 95 % t interval, same "
+                                     "units; null with too few runs.")
 
 
 class FingerprintRow(BaseModel):
     exposure_tool: str
     side: Side
-    layer: int | None  # None: all layers of that side together
-    count: int
-    rest_count: int
-    terms_facing_side: list[TermFigure]
-    rest_facing_side: list[TermFigure]
-    difference_facing_side: list[TermFigure]
+    layer: int | None = Field(description="null: all layers of that side together.")
+    count: int = Field(description="Runs of this exposure tool.")
+    rest_count: int = Field(description="Runs of the rest of the fleet on the same side.")
+    terms_facing_side: list[TermFigure] = Field(
+        description="The tool's mean terms in its own (facing-side) frame.")
+    rest_facing_side: list[TermFigure] = Field(description="The rest of the fleet's, same frame.")
+    difference_facing_side: list[TermFigure] = Field(
+        description="The tool's less the rest's: what is this tool's own.")
 
 
 class ToolWhatIf(BaseModel):
@@ -60,9 +64,11 @@ class ToolWhatIf(BaseModel):
 
     exposure_tool: str
     runs: int
-    ftb_3sigma_with_um: float
-    ftb_3sigma_without_um: float
-    adds_um: float
+    ftb_3sigma_with_um: float = Field(description="|mean| + 3 sigma of the FTB at the worst "
+                                      "check point, over the panels, as they are.")
+    ftb_3sigma_without_um: float = Field(description="The same with this tool's mean bias "
+                                         "taken out of its runs.")
+    adds_um: float = Field(description="with - without: what the tool's bias adds.")
 
 
 class FingerprintReport(BaseModel):
@@ -71,16 +77,19 @@ class FingerprintReport(BaseModel):
     panels: int
     rows: list[FingerprintRow]
     what_if: list[ToolWhatIf]
-    worst_point_mm: PointOut | None
+    worst_point_mm: PointOut | None = Field(description="The check point of the worst mean "
+                                            "FTB, where the what-if is judged.")
     note: str = CAUTION
 
 
 class Contribution(BaseModel):
-    group: str  # "L3 A", "EXP-2", ...
+    group: str = Field(description="What the share is of: 'L3 A' (layer 3 side A), an exposure "
+                       "tool, ...")
     runs: int
-    dx_um: float
+    dx_um: float = Field(description="Its part of the mean FTB vector at the worst check point.")
     dy_um: float
-    share: float
+    share: float = Field(description="Its share of the mean FTB there (the shares add up to 1; "
+                         "a negative share pulls the other way).")
 
 
 class LotToolShares(BaseModel):
@@ -92,9 +101,10 @@ class LotToolShares(BaseModel):
 
 class VarianceComponent(BaseModel):
     source: Literal["exposure tool", "lot", "panel within lot", "layer scatter"]
-    variance_um2: float
-    share: float
-    truncated: bool
+    variance_um2: float = Field(description="Variance of the FTB at the worst check point "
+                                "from this source, um^2.")
+    share: float = Field(description="Its share of the total variance.")
+    truncated: bool = Field(description="The estimate came out negative and is shown as 0.")
     groups: int
 
 
@@ -123,35 +133,41 @@ class DriftSettings(BaseModel):
 class DriftPoint(BaseModel):
     lot: str
     layer: int
-    panels: int
+    panels: int = Field(description="Panels in the subgroup (one lot, one layer and side).")
     at: datetime
-    mean_facing_side: float
-    ewma: float
-    lower: float
-    upper: float
-    rules: list[str]
+    mean_facing_side: float = Field(description="Subgroup mean of the term, raw units, in the "
+                                    "tool's own (facing-side) frame.")
+    ewma: float = Field(description="The EWMA after this point, same units.")
+    lower: float = Field(description="Lower control limit at this point.")
+    upper: float = Field(description="Upper control limit at this point.")
+    rules: list[str] = Field(description="Run rules that fired at this point (NIST/SEMATECH "
+                             "e-Handbook 6.3.2), e.g. '1 beyond 3 sigma'.")
 
 
 class DriftAlarm(BaseModel):
     exposure_tool: str
     side: Side
     term: TermName
-    size_facing_side: float  # the EWMA's distance from the centre at the last point, raw units
-    strength: float  # the largest |EWMA - centre| over the limit half-width
+    size_facing_side: float = Field(description="The EWMA's distance from the centre at the "
+                                    "last point, raw units, tool's own frame.")
+    strength: float = Field(description="The largest |EWMA - centre| over the limit half-width "
+                            "(above 1: beyond the limits).")
     first_signal: datetime
-    change_start: datetime
-    change_kind: Literal["step", "ramp"]
-    change_rate: float  # step size, or slope per day for a ramp (raw units)
-    rules: list[str]  # run rules that fired at or after the change start
+    change_start: datetime = Field(description="Estimated start of the change.")
+    change_kind: Literal["step", "ramp"] = Field(description="step: a shift at change_start; "
+                                                 "ramp: a drift from it.")
+    change_rate: float = Field(description="The step's size, or the ramp's slope per day, raw "
+                               "units.")
+    rules: list[str] = Field(description="Run rules that fired at or after the change start.")
 
 
 class DriftChart(BaseModel):
     exposure_tool: str
     side: Side
     term: TermName
-    centre: float
-    sigma_between: float
-    sigma_within: float
+    centre: float = Field(description="Centre line from the baseline, raw units.")
+    sigma_between: float = Field(description="Spread of subgroup means between subgroups.")
+    sigma_within: float = Field(description="Spread within a subgroup.")
     points: list[DriftPoint]
 
 
@@ -168,13 +184,14 @@ class FtbDistribution(BaseModel):
     panels: int
     by_risk: dict[RiskLevel, int] = Field(
         examples=[{"clear": 20, "watch": 3, "at_risk": 1, "over_limit": 0}])
-    ftb_mean_um: float | None
+    ftb_mean_um: float | None = Field(description="Mean current FTB of the measured panels.")
     ftb_sigma_um: float | None
-    ftb_p50_um: float | None
+    ftb_p50_um: float | None = Field(description="Median current FTB (p90, p99 alike).")
     ftb_p90_um: float | None
     ftb_p99_um: float | None
-    forecast_panels: int
-    forecast_within_limit: float | None  # mean of 1 - P(final over limit) over forecast panels
+    forecast_panels: int = Field(description="Panels with a forecast.")
+    forecast_within_limit: float | None = Field(
+        description="Forecast yield: the mean of 1 - P(final over limit) over those panels.")
 
 
 class LotRow(FtbDistribution):
