@@ -121,9 +121,6 @@ class SideTrend:
     ----------
     observed_layers, remaining_layers : tuple of int
         Layer numbers (1-based); remaining includes missing layers below the top one observed.
-    weight : float
-        Share in [0, 1] of the side's own mean translation deviation that the forecast expects
-        its remaining layers to repeat.
     per_layer_um : tuple of float
         Expected (dx, dy) translation a remaining layer adds (history mean + conditional
         deviation + tool); the history mean when none remain.
@@ -133,7 +130,6 @@ class SideTrend:
 
     observed_layers: tuple[int, ...]
     remaining_layers: tuple[int, ...]
-    weight: float
     per_layer_um: tuple[float, float]
     observed_per_layer_um: tuple[float, float]
 
@@ -367,12 +363,8 @@ def forecast_final(
             per_layer = rem_dev[:2, mine].mean(axis=1)
         else:
             per_layer = history.mean[:2, s * layers:(s + 1) * layers].mean(axis=1)
-        base = history.mean[:2, s * layers:(s + 1) * layers].mean(axis=1)
-        own = obs_mean - base
-        size = float(own @ own)
-        weight = float(np.clip((per_layer - base) @ own / size, 0.0, 1.0)) if size > 0 else 0.0
         trends.append(SideTrend(
-            observed_layers=observed_layers, remaining_layers=remaining, weight=weight,
+            observed_layers=observed_layers, remaining_layers=remaining,
             per_layer_um=(float(per_layer[0]), float(per_layer[1])),
             observed_per_layer_um=(float(obs_mean[0]), float(obs_mean[1])),
         ))

@@ -7,7 +7,7 @@ fires, so that an engineer sees all causes (a side's drift and an L2L over limit
 =======================  ==========  =====================================================
 rule                     level       fires when
 =======================  ==========  =====================================================
-current_ftb_over_limit           over_limit  current worst FTB > FTB limit
+current_ftb_over_limit   over_limit  current worst FTB > FTB limit
 via_off_pad              over_limit  a layer's fitted L2L offset passes its vias' capture
                                      margin by more than 2 fit standard errors (products
                                      with via settings)
@@ -19,7 +19,7 @@ via_miss_at_risk         at_risk     P(a via misses part of its pad) >= p_at_ris
 forecast_watch           watch       forecast P(final FTB > limit) >= p_watch, or the panel
                                      was watched (or worse) before and P >= p_watch_leave
 via_miss_watch           watch       P(a via misses part of its pad) >= p_watch somewhere
-current_ftb_near_limit           watch       current worst FTB >= watch_fraction * FTB limit
+current_ftb_near_limit   watch       current worst FTB >= watch_fraction * FTB limit
 clear                    clear       none of the above
 =======================  ==========  =====================================================
 
@@ -230,9 +230,10 @@ def _remaining_phrase(forecast: Forecast) -> str:
     n_a, n_b = len(a.remaining_layers), len(b.remaining_layers)
     if n_a == n_b:
         text = f"With {_layers(n_a)} to come on each side"
-    elif n_a == 0 or n_b == 0:
-        busy, n = ("B", n_b) if n_a == 0 else ("A", n_a)
-        text = f"With {_layers(n)} to come on side {busy} and none on side {'AB'[busy == 'A']}"
+    elif n_a == 0:
+        text = f"With {_layers(n_b)} to come on side B and none on side A"
+    elif n_b == 0:
+        text = f"With {_layers(n_a)} to come on side A and none on side B"
     else:
         text = f"With {_layers(n_a)} to come on side A and {n_b} on side B"
     missing = []

@@ -12,14 +12,10 @@ from fastapi.responses import HTMLResponse
 from app.api.deps import DbDep
 from app.errors import DomainError
 from app.pages.common import User, refused, render, require
-from app.schemas import codes
 from app.services import holds
 
 router = APIRouter(include_in_schema=False)
 
-#: Rules a hold can carry: those of the at_risk and over_limit levels, and a manual hold.
-HOLD_RULES = tuple(code for code, meaning in codes.HOLD_RULES
-                   if meaning.endswith(("(over_limit).", "(at_risk).")) or code == "manual")
 PAGE_SIZE = 50
 
 
@@ -42,5 +38,5 @@ def board(
     more = (f"/board?{urlencode({**filters, 'cursor': hold_list.next_cursor})}"
             if hold_list.next_cursor else None)
     return render(request, "board.html", user, holds=hold_list.holds, filters=filters,
-                  rules=HOLD_RULES, more=more, continued=bool(cursor),
+                  rules=holds.HOLD_RULES, more=more, continued=bool(cursor),
                   csv_href=f"/api/v1/holds.csv?{urlencode(filters)}".rstrip("?"))

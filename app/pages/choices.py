@@ -28,9 +28,11 @@ def side_choice(asked: str) -> str:
 
 def layer_choice(asked: str, layers_per_side: int) -> int | None:
     """A layer number of the product, or None (all layers) when not asked for."""
-    if not asked.strip():
+    asked = asked.strip()
+    if not asked:
         return None
-    if not asked.strip().isdigit() or not 1 <= int(asked) <= layers_per_side:
+    # isdecimal, not isdigit: '²' is a digit that int() refuses.
+    if not asked.isdecimal() or not 1 <= int(asked) <= layers_per_side:
         raise InvalidInput(f"layer must be a number from 1 to {layers_per_side}, got '{asked}'",
                            [FieldError("not a layer of the product", pointer="query:/layer")])
     return int(asked)

@@ -9,8 +9,7 @@ from fastapi import APIRouter, Query, Request
 from fastapi.responses import HTMLResponse
 
 from app.api.deps import DbDep
-from app.db import Database
-from app.errors import DomainError, FieldError, NotFound
+from app.errors import DomainError
 from app.pages.choices import product_choice
 from app.pages.common import User, refused, render, require
 from app.schemas.analysis import AnalysisFilter
@@ -20,9 +19,6 @@ from app.views.bars import histogram_svg
 from app.views.text import LEVELS
 
 router = APIRouter(include_in_schema=False)
-#: Panels read per call while collecting a lot (a lot is tens of panels; the cap keeps a
-#: mistaken giant lot from reading the whole store into one page).
-_BATCH, _MOST = 200, 5000
 
 
 @router.get("/lots", response_class=HTMLResponse)
@@ -39,29 +35,12 @@ def lot_list(request: Request, db: DbDep, user: User,
                   levels=LEVELS)
 
 
-def lot_panels(db: Database, lot: str) -> list[PanelRead]:
-    """Every panel of the lot, worst current FTB first."""
-    out: list[PanelRead] = []
-    cursor = None
-    while len(out) < _MOST:
-        page = panels.list_panels(db=db, lot=lot, sort="ftb_current", descending=True, limit=_BATCH,
-                                  cursor=cursor)
-        out += page.items
-        cursor = page.next_cursor
-        if cursor is None:
-            break
-    if not out:
-        raise NotFound(f"unknown lot '{lot}'", [FieldError("no panel in this lot",
-                                                           pointer="path:/lot")])
-    return out
-
-
 @router.get("/lots/{lot}", response_class=HTMLResponse)
 def lot_page(request: Request, lot: str, db: DbDep, user: User) -> HTMLResponse:
     try:
         require(user, "query")
         require(user, "analyse")
-        members = lot_panels(db, lot)
+        members = panels.lot_members(db=db, lot=lot)
         product = products.get(db=db, code=members[0].product)
         report = analysis_lots.lot_summary(
             db=db, filters=AnalysisFilter(product=product.code, lot=lot))

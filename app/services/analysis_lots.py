@@ -3,9 +3,8 @@ lot and per day or week; and the site vectors of one panel, layer and side for v
 
 Everything here reads the stored panel states (FTB now at the worst check point, forecast
 P(final over limit), risk level), which every accepted measurement rewrites; nothing is
-recomputed. A
-window selects the panels with a run measured in it; a panel's period is the day (or ISO week,
-UTC) of its latest run.
+recomputed. A window selects the panels with a run measured in it; a panel's period is the day
+(or ISO week, UTC) of its latest run.
 """
 
 from __future__ import annotations
@@ -146,4 +145,4 @@ def site_vectors(*, db: Database, panel: str, side: str, layer: int) -> SiteVect
         ]
         return SiteVectors(panel=panel, side=m.side, layer=m.layer,
                            exposure_tool=m.exposure_tool, frame=m.frame, measured_at=m.measured_at,
-                           model=codes.FIT_MODEL_NAMES.get(fit.model, fit.model), sites=vectors)
+                           model=codes.FIT_MODEL_NAMES[fit.model], sites=vectors)

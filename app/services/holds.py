@@ -28,7 +28,7 @@ from sqlalchemy.orm import Session
 
 from app.db import Database
 from app.errors import Conflict, FieldError, InvalidInput, NotFound
-from app.overlay.risk import RiskAssessment, severity
+from app.overlay.risk import RULES, RiskAssessment, severity
 from app.schemas.figures import LayersReached
 from app.schemas.holds import DispositionCreate, HoldCreate, HoldList, HoldRead
 from app.services import audit, panel_estimate
@@ -40,6 +40,8 @@ from app.services.lifecycle import PanelEvent, PanelStatus, next_status
 from app.store.tables import Hold, Lot, Measurement, Panel, PanelEstimate, Product, utcnow
 
 HOLDING_LEVELS: Final = ("at_risk", "over_limit")
+#: Rules a hold can carry: those of the holding levels, and a manual hold.
+HOLD_RULES: Final = (*(rule for rule, level in RULES if level in HOLDING_LEVELS), "manual")
 AUTOMATIC: Final = "stackledger (automatic)"
 
 

@@ -19,7 +19,7 @@ from app.schemas import codes
 from app.services import limits
 from app.store.tables import ApiKey, utcnow
 
-ROLES: Final = tuple(code for code, _ in codes.ROLES)
+ROLES: Final = tuple(codes.codes(codes.ROLES))
 NO_VALID_KEY: Final = "(no valid key)"
 
 #: What each action needs. Admin may do everything.

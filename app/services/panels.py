@@ -10,7 +10,7 @@ from sqlalchemy import Select, and_, or_, select
 from sqlalchemy.orm import Session
 
 from app.db import Database
-from app.errors import Conflict, InvalidInput, NotFound
+from app.errors import Conflict, FieldError, InvalidInput, NotFound
 from app.overlay.capture import InterfaceCapture
 from app.overlay.model import evaluate, report_units
 from app.schemas import codes
@@ -189,6 +189,21 @@ def list_panels(
             next_cursor = cursors.encode([value, last[0].serial])
         return PanelPage(items=items, next_cursor=next_cursor)
 
+
+
+def lot_members(*, db: Database, lot: str, most: int = 5000) -> list[PanelRead]:
+    """Every panel of a lot, worst current FTB first, up to ``most`` (a lot is tens of panels;
+    the cap keeps a mistaken giant lot from reading the whole store); NotFound when none."""
+    page = list_panels(db=db, lot=lot, sort="ftb_current", descending=True, limit=200)
+    items = list(page.items)
+    while page.next_cursor and len(items) < most:
+        page = list_panels(db=db, lot=lot, sort="ftb_current", descending=True, limit=200,
+                           cursor=page.next_cursor)
+        items += page.items
+    if not items:
+        raise NotFound(f"unknown lot '{lot}'", [FieldError("no panel in this lot",
+                                                           pointer="path:/lot")])
+    return items[:most]
 
 def stack(*, db: Database, serial: str) -> StackRead:
     """Per side and layer: the fit in force, its L2L worst and the cumulative FTB worst."""

@@ -28,7 +28,6 @@ def trend(
     return SideTrend(
         observed_layers=observed_layers,
         remaining_layers=remaining,
-        weight=0.33,
         per_layer_um=expected,
         observed_per_layer_um=drift,
     )

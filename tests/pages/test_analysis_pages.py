@@ -100,6 +100,7 @@ def test_fingerprint_page_draws_the_chosen_tool_side_and_layer(db):
     ("/analysis/fingerprints?product=TESTPROD&side=C", 422, "side must be A or B"),
     ("/analysis/fingerprints?product=TESTPROD&layer=13", 422, "layer must be a number from 1"),
     ("/analysis/fingerprints?product=TESTPROD&layer=x", 422, "layer must be a number"),
+    ("/analysis/fingerprints?product=TESTPROD&layer=%C2%B2", 422, "layer must be a number"),
     ("/analysis/drift?term=Zz", 422, "term must be one of"),
     ("/analysis/drift?side=AB", 422, "side must be A or B"),
     ("/analysis/alarms?product=a%00", 422, "NUL"),
