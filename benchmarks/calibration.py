@@ -22,10 +22,11 @@ with one read-only query (p_exceed, risk, forecast terms).
 Printed, for each product: per layer 3, 6, 9 the sum of predicted p against actual failures,
 Brier score and skill, a reliability table; per panel the false alarm, miss and hit rates (flag
 = at_risk or over_limit at some state by layer 9) and the median layer of first flag; the
-flapping share; the z-score of the final FTB scale term (Sx) of the growing-core-scale panels
-after layer 3; the oracle bound of ``calibration_oracle.py`` on the same panels; and the
-forecast's cost: time in ``panel_estimate._forecast`` against the wall time of the
-import POSTs, measured in this run. Rates come with their binomial standard error.
+flapping share; the same for the watch list (watch or worse), the early warning; the z-score of
+the final FTB scale term (Sx) of the growing-core-scale panels after layer 3; the oracle bound
+of ``calibration_oracle.py`` on the same panels; and the forecast's cost: time in
+``panel_estimate._forecast`` against the wall time of the import POSTs, measured in this run.
+Rates come with their binomial standard error.
 """
 
 from __future__ import annotations
@@ -49,7 +50,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from _data import Timer
 from calibration_oracle import flags as oracle_flags
 from calibration_oracle import oracle_p
-from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
+from calibration_scores import layer_score, panel_scores, print_sweep, print_watch, z_scores
 from line_sim import Line, LineConfig, Lot
 
 T0 = datetime(2026, 11, 2, 6, 0, tzinfo=UTC)
@@ -64,6 +65,7 @@ class Track:
     scored: set[str] = field(default_factory=set)
     p: dict[str, np.ndarray] = field(default_factory=dict)
     flag: dict[str, np.ndarray] = field(default_factory=dict)
+    listed: dict[str, np.ndarray] = field(default_factory=dict)  # watch or worse
     sx: dict[str, tuple[float, float]] = field(default_factory=dict)  # after layer 3: mean, sd
 
 
@@ -139,6 +141,7 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
                     track.scored.add(serial)
                     track.p[serial] = np.full(config.layers, np.nan)
                     track.flag[serial] = np.zeros(config.layers, dtype=bool)
+                    track.listed[serial] = np.zeros(config.layers, dtype=bool)
             active.append((code, lot))
         work = [(lot, step - lot.start_step + 1) for _, lot in active]
         work = [(lot, k) for lot, k in work if 1 <= k <= config.layers]
@@ -163,6 +166,7 @@ def run(args: argparse.Namespace) -> dict[str, Any]:
             k = layer_of[serial]
             track.p[serial][k - 1] = p if p is not None else np.nan
             track.flag[serial][k - 1] = risk in ("at_risk", "over_limit")
+            track.listed[serial][k - 1] = risk != "clear"
             if k == 3 and forecast is not None and forecast.final_terms:
                 track.sx[serial] = (forecast.final_terms[2], forecast.final_terms_sd[2])
         if args.verbose:
@@ -207,6 +211,7 @@ def report(name: str, track: Track, line: Line) -> None:
     print(f"hit (flagged by layer 9 that fail):        {ps.hit}")
     print(f"median layer of first flag (failing):      {ps.first_flag_median:.1f}")
     print(f"flapping (out of flagged at least twice):  {ps.flapping}")
+    print_watch(np.array([track.listed[s] for s in serials]), y)
     # What no forecast can beat on these panels: the oracle that knows all but the randomness
     # still to come (calibration_oracle.py), with the default at-risk rule.
     rng = np.random.default_rng(1)
@@ -218,7 +223,7 @@ def report(name: str, track: Track, line: Line) -> None:
                          for lot in scored_lots])
     po_scores = panel_scores(oracle_flags(po), yo, by=9)
     print(f"oracle bound: skill after layer 3 {layer_score(po[:, 2], yo, 3).skill:.2f}; "
-          f"flags 0.20 / 0.10: false alarm {po_scores.false_alarm.value:.3f}, miss "
+          f"default flags: false alarm {po_scores.false_alarm.value:.3f}, miss "
           f"{po_scores.miss.value:.3f}, hit {po_scores.hit.value:.3f}")
     g = np.array(growing)
     mean_sd = np.array([track.sx.get(s, (np.nan, np.nan)) for s in serials])

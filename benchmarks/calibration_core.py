@@ -23,7 +23,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
+from calibration_scores import layer_score, panel_scores, print_sweep, print_watch, z_scores
 from line_core import run_core
 from line_sim import Line, LineConfig
 
@@ -67,6 +67,7 @@ def main() -> None:
     print(f"hit (flagged by layer 9 that fail):        {ps.hit}")
     print(f"median layer of first flag (failing):      {ps.first_flag_median:.1f}")
     print(f"flapping (out of flagged at least twice):  {ps.flapping}")
+    print_watch(np.array([[lv != "clear" for lv in run.level[s]] for s in serials]), y)
     for label, group in (("growing core scale", "growing"), ("all panels", None)):
         truth, mean, sd = [], [], []
         for lot in scored:

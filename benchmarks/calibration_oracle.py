@@ -10,8 +10,8 @@ scatter of the remaining layers and the future steps of the random walk. The ora
 worst FTB > limit) after layer k is the Monte Carlo share of the final FTBs made by replacing
 exactly those parts of the true panel with fresh draws from the line's own distributions.
 
-Flags follow the product's default rule: at risk from P >= 0.20, left below 0.10, and a current
-FTB over the limit. If even the oracle cannot reach false alarm <= 0.10, miss <= 0.05 and
+Flags follow the product's default rule (``RiskThresholds``: at risk from P >= p_at_risk, left
+below p_at_risk_leave). If even the oracle cannot reach false alarm <= 0.10, miss <= 0.05 and
 hit >= 0.50 at once, then those targets are out of reach of any forecast on this line: the
 outcome is decided by randomness still to come.
 """
@@ -31,6 +31,10 @@ from calibration_scores import layer_score, panel_scores, print_sweep
 from line_sim import PPM, Line, Lot
 
 from app.overlay.model import design_matrix
+from app.overlay.risk import RiskThresholds
+
+#: The product defaults of the risk thresholds (the limits here are placeholders).
+DEFAULTS = RiskThresholds(ftb_limit_um=1.0, l2l_limit_um=1.0)
 
 
 def oracle_p(line: Line, lot: Lot, k: int, samples: int, rng: np.random.Generator) -> np.ndarray:
@@ -63,8 +67,9 @@ def oracle_p(line: Line, lot: Lot, k: int, samples: int, rng: np.random.Generato
     return out
 
 
-def flags(p: np.ndarray, enter: float = 0.20, leave: float = 0.10) -> np.ndarray:
-    """At-risk flags per state with the default hysteresis (P-only)."""
+def flags(p: np.ndarray, enter: float = DEFAULTS.p_at_risk,
+          leave: float = DEFAULTS.p_at_risk_leave) -> np.ndarray:
+    """At-risk flags per state with the product's default hysteresis (P-only)."""
     out = np.zeros(p.shape, dtype=bool)
     state = np.zeros(p.shape[0], dtype=bool)
     for k in range(p.shape[1]):
@@ -98,7 +103,8 @@ def main() -> None:
         sc = layer_score(p[:, k - 1], y, k)
         print(f"{k:5d} {sc.sum_p:6.1f} {sc.failures:6d} {sc.brier:6.3f} {sc.skill:6.2f}")
     ps = panel_scores(flags(p), y, by=9)
-    print(f"flags with hysteresis 0.20 / 0.10: false alarm {ps.false_alarm}, miss {ps.miss}, "
+    print(f"flags with the default hysteresis {DEFAULTS.p_at_risk:.2f} / "
+          f"{DEFAULTS.p_at_risk_leave:.2f}: false alarm {ps.false_alarm}, miss {ps.miss}, "
           f"hit {ps.hit}")
     print_sweep(p, y)
     print(f"run time {time.perf_counter() - t:.0f} s")

@@ -117,3 +117,11 @@ def print_sweep(p: np.ndarray, fails: np.ndarray, *, by: int = 9) -> None:
         alt = panel_scores(np.nan_to_num(p) >= theta, fails, by=by)
         print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
               f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")
+
+
+def print_watch(listed: np.ndarray, fails: np.ndarray, *, by: int = 9) -> None:
+    """The early warning: panels on the watch list or worse (any level but clear) by layer
+    ``by``; how many failing panels it never showed, how many passing ones it did."""
+    ps = panel_scores(listed, fails, by=by)
+    print(f"watch or worse by layer {by}: failing never listed {ps.miss}, passing listed "
+          f"{ps.false_alarm}, median first layer (failing) {ps.first_flag_median:.1f}")

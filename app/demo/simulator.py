@@ -80,9 +80,9 @@ EXCURSION_UM: Final = (18.0, 20.0)  # one layer's registration jump, beyond the 
 CORE_GROWTH_PPM: Final = {"A": 3.0, "B": 0.5}  # layer k shows k times this much scale
 INTENDED_LEVEL: Final = {
     "over_limit": "over_limit",
-    "drifting": "at_risk",
+    "drifting": "at_risk (watch while few layers show it)",
     "growing_core": "watch / at_risk",
-    "slow_drifting": "watch / at_risk",
+    "slow_drifting": "watch",
 }
 
 
@@ -111,7 +111,7 @@ class ProductSpec:
             "l2l_limit_um": self.l2l_limit_um,
             "model_terms": self.model_terms,
             "p_watch": 0.05,
-            "p_at_risk": 0.20,
+            "p_at_risk": 0.50,
         }
         if self.vias is not None:
             record["vias"] = dict(self.vias)
@@ -189,7 +189,7 @@ class ScenarioSummary:
     complete_panels: int
     measurements: int
     rows: int
-    drifting: tuple[str, ...]  # 3-5 um a layer one way: heading out of limit (at_risk)
+    drifting: tuple[str, ...]  # 3-5 um a layer one way: heading out of limit (at_risk or watch)
     slow_drifting: tuple[str, ...]  # about 1 um a layer one way (watch)
     biased_tool: tuple[str, ...]  # at least BIAS_LISTING_UM of EXP-2's bias in today's FTB
     growing_core: tuple[str, ...]  # scale grows layer by layer, side A faster than B

@@ -294,8 +294,8 @@ def forecast_final(
     # The two classes (quiet, trending) of every component: conditional mean and variance,
     # and the t log-density of the observed part for the class posterior (up to a constant
     # common to both classes).
-    classes = ((history.mean, cov_q),
-               (history.mean + history.trend_mean, cov_q + history.trend_cov))
+    pi, trend_mean, trend_cov = history.trend_without(panel_id)
+    classes = ((history.mean, cov_q), (history.mean + trend_mean, cov_q + trend_cov))
     means, variances, logliks, mean_rs = [], [], [], []
     for mu_j, cov_j in classes:
         mean_r, var, maha, logdet = _conditional(mu_j, cov_j, slots_o, slots_r, z_o, a_r)
@@ -305,7 +305,6 @@ def forecast_final(
         means.append(TO_COMPONENTS @ current + (mean_r + tool_rem) @ a_r)
         variances.append(var)
         mean_rs.append(mean_r)
-    pi = history.trend_share
     with np.errstate(divide="ignore"):
         logit = np.log(pi) - np.log1p(-pi) + group_total(logliks[1] - logliks[0])
     trending = np.where(pi > 0.0, 1.0 / (1.0 + np.exp(-np.clip(logit, -700.0, 700.0))), 0.0)

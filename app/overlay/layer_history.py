@@ -38,8 +38,11 @@ Learning, from the caller's window of the product's panels
   shrunk toward the prior's structure (``trend_mixture.shrinkage_intensity``). The path from
   prior to history is smooth in n (credibility), with no switch at a panel count.
 - Quiet and trending panels (``trend_mixture``): Sigma and mu above are the quiet class's; a
-  share pi of panels (learned by EM from the complete panels, 0 with none) adds a per-side
-  offset and layer-index trend, ``trend_mean`` and ``trend_cov``.
+  share pi of panels adds a per-side offset and layer-index trend, ``trend_mean`` and
+  ``trend_cov``, learned by EM from the complete panels. The prior has a trending class too
+  (``trend_without``): share PRIOR_TREND_SHARE worth PRIOR_PANELS panels, mean 0 and
+  coefficient variance w (one layer's variance) on each offset and slope, so that
+  pi = (sum r + k0 pi0) / (n + k0) moves smoothly from the prior to history.
 """
 
 from __future__ import annotations
@@ -52,12 +55,17 @@ import numpy as np
 from app.overlay.errors import OverlayInputError
 from app.overlay.frames import mirror_terms
 from app.overlay.model import N_TERMS, FloatArray
-from app.overlay.trend_mixture import fit_trend_mixture
+from app.overlay.trend_mixture import fit_trend_mixture, trend_design
 
 #: Persistent offset of the prior: tau = PRIOR_OFFSET_LAYERS / L (see the module docstring).
 PRIOR_OFFSET_LAYERS: Final = 1.0
 #: Prior weight in panels (k0 = nu0).
 PRIOR_PANELS: Final = 10.0
+#: The prior's share of trending panels, worth PRIOR_PANELS panels like the rest of the prior:
+#: a new product is assumed to have about one panel in twenty that trends (an assumption, not a
+#: measured figure; the product's complete panels replace it), so that a panel whose own layers
+#: keep moving one way is extrapolated as trending before the product has any history.
+PRIOR_TREND_SHARE: Final = 0.05
 #: Tool effect credibility: rows behind an effect for half weight.
 TOOL_CREDIBILITY_ROWS: Final = 20.0
 #: Pairs of layers behind the persistence estimate for half weight against the default tau.
@@ -172,6 +180,24 @@ class ProductHistory:
         cov = (PRIOR_PANELS * sigma0 + self.data_scatter) / (PRIOR_PANELS + self.n_complete)
         out: FloatArray = 0.5 * (cov + np.swapaxes(cov, 1, 2))
         return out
+
+    def trend_without(self, panel_id: str | None) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """The trending class, ``panel_id`` left out: share (8,), mean (8, 2L), cov (8, 2L, 2L).
+
+        Where history has learned a trending class (``trend_share`` > 0, which is
+        sum r / (n + k0)), the prior adds k0 pi0 / (n + k0) to its share; elsewhere the class
+        is the prior's, with that share: mean 0 and X diag(w, w, w, w) X^T, w the component's
+        per-layer variance (``capability_without``).
+        """
+        w = self.capability_without(panel_id)
+        prior_share = PRIOR_TREND_SHARE * PRIOR_PANELS / (PRIOR_PANELS + self.n_complete)
+        learned = self.trend_share > 0.0
+        x = trend_design(self.layers)
+        prior_cov = np.einsum("ij,c,kj->cik", x, w, x)
+        share: FloatArray = np.where(w > 0.0, self.trend_share + prior_share, 0.0)
+        mean: FloatArray = np.where(learned[:, None], self.trend_mean, 0.0)
+        cov: FloatArray = np.where(learned[:, None, None], self.trend_cov, prior_cov)
+        return share, mean, cov
 
     def persistence_without(self, panel_id: str | None, w: FloatArray) -> FloatArray:
         """Covariance b (8,) of two layers of one side of a panel, ``panel_id`` left out.

@@ -107,15 +107,23 @@ class RiskThresholds:
     p_watch_leave, p_at_risk_leave : float
         A watched (at-risk) panel leaves that level only when P falls below these;
         0 < p_watch_leave <= p_watch and 0 < p_at_risk_leave <= p_at_risk.
+
+    Why p_at_risk defaults to 0.50: a panel is held when the forecast says it is more likely
+    than not to end over the limit. As layers arrive, a calibrated P is the conditional
+    expectation of the outcome, a martingale, so by optional stopping (Williams, *Probability
+    with Martingales*, 1991, ch. 10) the share of held panels that really fail is the mean P at
+    which they were held: at least p_at_risk, whatever the line. Holding at 0.20 makes most holds
+    false alarms however good the forecast. Panels from p_watch to p_at_risk are watched, not
+    held; docs/forecast.md measures both lists.
     """
 
     ftb_limit_um: float
     l2l_limit_um: float
     p_watch: float = 0.05
-    p_at_risk: float = 0.20
+    p_at_risk: float = 0.50
     watch_fraction: float = 0.70
     p_watch_leave: float = 0.02
-    p_at_risk_leave: float = 0.10
+    p_at_risk_leave: float = 0.25
 
     def decision_points(self) -> tuple[float, ...]:
         """Every P threshold a level can turn on."""

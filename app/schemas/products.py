@@ -101,8 +101,10 @@ class ProductCreate(BaseModel):
                                        "for: 6 (Tx Ty Sx Sy Ox Oy) or 8 (adds Kx Ky).")
     p_watch: float = Field(default=0.05, gt=0, lt=1, description="A panel is watched from this "
                            "P(final over limit) (or a via miss probability) on.")
-    p_at_risk: float = Field(default=0.20, gt=0, lt=1, description="A panel is at risk (and "
-                             "held) from this P(final over limit) on.")
+    p_at_risk: float = Field(default=0.50, gt=0, lt=1, description="A panel is at risk (and "
+                             "held) from this P(final over limit) on. With a calibrated "
+                             "forecast about this share of the held panels or more really "
+                             "fail (docs/forecast.md).")
     vias: Vias | None = Field(
         default=None,
         description="Via and pad diameters; without them each layer's L2L is judged against "
@@ -114,7 +116,7 @@ class ProductCreate(BaseModel):
         "this (hysteresis); at most p_watch.",
     )
     p_at_risk_leave: float = Field(
-        default=0.10, gt=0, lt=1,
+        default=0.25, gt=0, lt=1,
         description="An at-risk panel leaves at_risk only when P(final over limit) falls "
         "below this (hysteresis); at most p_at_risk.",
     )

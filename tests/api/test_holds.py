@@ -17,7 +17,12 @@ from tests.factories import client, make_keys, make_panel, make_product, measure
 
 @pytest.fixture
 def setup(db):
-    make_product(db)  # 12 + 12 layers, FTB limit 60 um, L2L limit 12 um, no history
+    # 12 + 12 layers, FTB limit 60 um, L2L limit 12 um, no history. These tests are about the
+    # hold mechanics, so the product holds at P >= 0.25 (left below 0.10), which a new
+    # product's panel drifting 3 um a layer each way reaches within a few layers (one layer of
+    # 6 um FTB alone gives P of about 0.2 under the prior); the default of 0.50 is checked in
+    # tests/api/test_panels.py and its effect in benchmarks/.
+    make_product(db, p_at_risk=0.25, p_at_risk_leave=0.10)
     return db, client(db), make_keys(db)
 
 
@@ -51,7 +56,7 @@ def test_drifting_panel_is_at_risk_and_held_while_alternating_one_stays_clear(se
     state = _drift(c, k, "DRIFT", 6)
     assert state["ftb_current_um"] == pytest.approx(36.0, abs=1e-6)
     assert state["risk"] == "at_risk"
-    assert state["forecast"]["p_final_over_limit"] >= 0.20
+    assert state["forecast"]["p_final_over_limit"] >= 0.25
     assert state["forecast"]["layers_to_come"] == {"A": list(range(7, 13)), "B": list(range(7, 13))}
     assert any("um a layer" in r and "Side A" in r for r in state["reasons"])
     for layer in range(1, 7):

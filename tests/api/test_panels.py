@@ -80,7 +80,9 @@ def test_product_defaults_and_repeat(setup):
     assert len(p["check_points_mm"]) == 25
     xs = sorted({x for x, _ in p["check_points_mm"]})
     assert xs[0] == pytest.approx(-0.45 * 510) and xs[-1] == pytest.approx(0.45 * 510)
-    assert p["p_watch"] == 0.05 and p["p_at_risk"] == 0.20
+    # Held from "more likely than not" (app.overlay.risk.RiskThresholds says why).
+    assert (p["p_watch"], p["p_watch_leave"]) == (0.05, 0.02)
+    assert (p["p_at_risk"], p["p_at_risk_leave"]) == (0.50, 0.25)
     body = {"code": "TESTPROD", "layers_per_side": 10, "flip_axis": "y", "panel_width_mm": 510,
             "panel_height_mm": 515, "ftb_limit_um": 60, "l2l_limit_um": 12}
     assert c.post("/api/v1/products", json=body, headers=k.headers("admin")).status_code == 409

