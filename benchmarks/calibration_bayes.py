@@ -378,6 +378,18 @@ def print_scores(p: np.ndarray, y: np.ndarray, samples: int | None) -> None:
     print("sum p / failures at layers 1..12: " + " ".join(f"{r:.2f}" for r in ratios))
 
 
+def print_reliability(p: np.ndarray, y: np.ndarray) -> None:
+    """Reliability pooled over layers 1..12 (panels repeat across layers, so the binomial se
+    is optimistic): per bin of p the count, mean p and observed failure frequency."""
+    sc = layer_score(p.ravel(), np.repeat(y, p.shape[1]), 0)
+    print("reliability, layers 1..12 pooled:  p bin        n   mean p  observed")
+    for lo, hi, n, mean_p, observed in sc.reliability:
+        print(
+            f"                                   {lo:4.2f}-{hi:4.2f} {n:5d} {mean_p:8.3f} "
+            f"{observed:9.3f}"
+        )
+
+
 def print_flags(p: np.ndarray, y: np.ndarray) -> None:
     print("hysteresis flags by layer 9:  enter leave  false alarm  miss   hit    flapping")
     for enter, leave in FLAG_PAIRS:
@@ -408,7 +420,7 @@ def main() -> None:
     ap.add_argument("--drift-share", type=float, default=None)
     ap.add_argument("--growth-share", type=float, default=None)
     ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
-    ap.add_argument("--samples", type=int, default=4000, help="Monte Carlo draws a panel/layer")
+    ap.add_argument("--samples", type=int, default=10000, help="Monte Carlo draws a panel/layer")
     ap.add_argument("--mc-seed", type=int, default=None, help="default: seed + 2")
     ap.add_argument(
         "--grid-scale",
@@ -443,6 +455,7 @@ def main() -> None:
         f"{len(y)} panels scored, {int(y.sum())} fail (base rate {y.mean():.3f})"
     )
     print_scores(p, y, args.samples)
+    print_reliability(p, y)
     print_sweep(p, y)
     print_flags(p, y)
     for label, sel in (("growing core scale", run.growing), ("all panels", np.ones_like(y))):
@@ -495,6 +508,20 @@ def compare(config: LineConfig, args: argparse.Namespace, bayes: BayesRun) -> No
         print(f"\n{name}, seed {args.seed}")
         print_scores(p, y, None)
         print_flags(p, y)
+    # If the bound's p is E[fail | measurements], then for any q from the same measurements
+    # E[(q - y)^2 - (p - y)^2] = E[(q - p)^2] >= 0: the paired Brier gap is estimated twice, from
+    # the outcomes (noisy) and as mean (q - p)^2 (no outcome noise); they should agree.
+    print(
+        "\nBrier gap to the bound, by layer: observed mean[(q-y)^2 - (p-y)^2] (se) | mean (q-p)^2"
+    )
+    for name, q in (("core", p_core), ("oracle", p_oracle)):
+        cells = []
+        for k in CHECK_LAYERS:
+            pk, qk = bayes.p[:, k - 1], q[:, k - 1]
+            d = (qk - y) ** 2 - (pk - y) ** 2
+            se = d.std(ddof=1) / np.sqrt(d.size)
+            cells.append(f"L{k} {d.mean():+.4f} ({se:.4f}) | {np.mean((qk - pk) ** 2):.4f}")
+        print(f"  {name:6s} " + "   ".join(cells))
     print(f"compare run time {time.perf_counter() - t:.0f} s")
 
 
