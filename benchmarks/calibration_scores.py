@@ -117,6 +117,30 @@ def print_sweep(p: np.ndarray, fails: np.ndarray, *, by: int = 9) -> None:
         alt = panel_scores(np.nan_to_num(p) >= theta, fails, by=by)
         print(f"                          {theta:4.2f}  {alt.false_alarm.value:10.3f} "
               f"{alt.miss.value:6.3f} {alt.hit.value:5.3f}")
+    theta, fa = lowest_false_alarm(p, fails, by=by)
+    print(f"  lowest false alarm with miss <= {MISS_TARGET:.2f} (any theta): {fa:.3f} "
+          f"at theta {theta:.3f}")
+
+
+MISS_TARGET = 0.05
+
+
+def lowest_false_alarm(p: np.ndarray, fails: np.ndarray, *, by: int = 9,
+                       miss: float = MISS_TARGET) -> tuple[float, float]:
+    """(theta, false alarm): the P-only threshold with the lowest false alarm by layer ``by``
+    among those that miss at most ``miss`` of the failing panels.
+
+    A panel is flagged by layer ``by`` when its highest P over layers 1..by reaches theta, so
+    the best theta is the highest that still leaves at most floor(miss n_fail) failing panels
+    below it: the (floor(miss n_fail) + 1)-th smallest of the failing panels' highest P.
+    """
+    top = np.nan_to_num(np.asarray(p, dtype=np.float64)[:, :by]).max(axis=1)
+    y = np.asarray(fails, dtype=bool)
+    if not y.any() or y.all():
+        return float("nan"), float("nan")
+    allowed = int(np.floor(miss * y.sum()))
+    theta = float(np.sort(top[y])[allowed])
+    return theta, float(np.mean(top[~y] >= theta))
 
 
 def print_watch(listed: np.ndarray, fails: np.ndarray, *, by: int = 9) -> None:
