@@ -7,8 +7,9 @@ The same simulated line (``line_sim.py``) through ``line_core.run_core``: the ob
 the true terms plus the least-squares fit noise, the history is learned by the core from the
 complete and in-process panels before each step. It is quicker than the service run, so it can
 compare models and other simulated lines (``--seed``, ``--drift-share``, ``--drift-um``,
-``--growth-share``); the main figures in docs/forecast.md come from ``calibration.py`` through
-the service.
+``--growth-share``, ``--walk-um``, ``--offset-um``; ``--warm-lots 0 --lots 12`` is a new
+product with no history); the main figures in docs/forecast.md come from ``calibration.py``
+through the service.
 """
 
 from __future__ import annotations
@@ -38,12 +39,18 @@ def main() -> None:
     ap.add_argument("--drift-share", type=float, default=None)
     ap.add_argument("--growth-share", type=float, default=None)
     ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
+    ap.add_argument("--walk-um", type=float, default=None)
+    ap.add_argument("--offset-um", type=float, default=None)
     args = ap.parse_args()
     config = LineConfig()
     if args.drift_share is not None:
         config = replace(config, drift_share=args.drift_share)
     if args.growth_share is not None:
         config = replace(config, growth_share=args.growth_share)
+    if args.walk_um is not None:
+        config = replace(config, walk_um=args.walk_um)
+    if args.offset_um is not None:
+        config = replace(config, offset_um=args.offset_um)
     if args.drift_um is not None:
         config = replace(config, drift_um=tuple(args.drift_um))
     t = time.perf_counter()

@@ -208,15 +208,22 @@ def _tool_panel(history: ProductHistory, tool: str | None, side: int) -> FloatAr
     return effect
 
 
-def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance) -> str:
+def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance,
+            share: FloatArray) -> str:
     if history.n_complete:
         source = f"product history of {history.n_complete} complete panels"
     else:
         source = "the new-product prior from the product's own L2L capability"
     carried = f"; exposure tool {tool}'s effect carried into the remaining layers" if tool else ""
-    mixed = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
-                      if pi > 0.0)
-    classes = f"; quiet and trending panels in {mixed}" if mixed else ""
+    # ``share`` is the trending share used (layer_history.trend_without): the prior's class
+    # wherever history has not learned one.
+    learned = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
+                        if pi > 0.0)
+    prior = any(pi > 0.0 and old == 0.0
+                for pi, old in zip(share, history.trend_share, strict=True))
+    where = "; ".join(([f"learned in {learned}"] if learned else [])
+                      + (["the prior's elsewhere" if learned else "the prior's"] if prior else []))
+    classes = f"; quiet and trending panels ({where})" if where else ""
     return (
         f"layer-by-layer conditional forecast from {source}{classes}{carried}; "
         f"{ex.n_samples} seeded samples (Monte Carlo standard error {ex.stderr:.3f})"
@@ -349,7 +356,7 @@ def forecast_final(
             sampler, points, float(ftb_limit_um), decide_at=decide_at, confidence=confidence,
             n_start=n_start, n_max=n_max, seed=seed,
         )
-        method = _method(history, carried, exceedance)
+        method = _method(history, carried, exceedance, pi)
 
     trends = []
     for s in range(2):

@@ -182,12 +182,15 @@ class ProductHistory:
         return out
 
     def trend_without(self, panel_id: str | None) -> tuple[FloatArray, FloatArray, FloatArray]:
-        """The trending class, ``panel_id`` left out: share (8,), mean (8, 2L), cov (8, 2L, 2L).
+        """The trending class used to forecast ``panel_id``: share (8,), mean (8, 2L), cov (8,
+        2L, 2L).
 
         Where history has learned a trending class (``trend_share`` > 0, which is
         sum r / (n + k0)), the prior adds k0 pi0 / (n + k0) to its share; elsewhere the class
         is the prior's, with that share: mean 0 and X diag(w, w, w, w) X^T, w the component's
-        per-layer variance (``capability_without``).
+        per-layer variance. w is taken without ``panel_id`` (``capability_without``); the
+        learned share, mean and covariance come from complete panels only, and a complete
+        panel is never forecast, so they never hold the panel either.
         """
         w = self.capability_without(panel_id)
         prior_share = PRIOR_TREND_SHARE * PRIOR_PANELS / (PRIOR_PANELS + self.n_complete)

@@ -23,14 +23,18 @@ McLachlan and Peel, *Finite Mixture Models*, 2000, ch. 2-3), on the product's co
 - E-step: class posteriors r_i from the two Gaussian likelihoods; for the trending class the
   posterior of beta_i, mean m_i = beta0 + psi X^T Sigma_t^-1 (z_i - mu - X beta0) and covariance
   P = psi - psi X^T Sigma_t^-1 X psi (the Gaussian conditional, Rasmussen and Williams eq. A.6);
-- M-step: pi = sum r / (n + k0) (the share shrunk toward 0 by a prior worth k0 panels, so a
-  product with few complete panels stays close to the one-class model and the path from the
-  prior to history is smooth); beta0 and psi from the r-weighted moments of m_i (psi with a
-  one-panel prior psi0 = w, one layer's variance, on offset and slope); mu and Sigma_q from the
-  expected quiet residuals, Sigma_q shrunk toward the prior's structure as in ``layer_history``.
+- M-step: pi = sum r / (n + k0) (the share shrunk toward 0 by a prior worth k0 panels; the
+  forecast adds the prior's own trending share k0 pi0 / (n + k0), so the path from the prior's
+  class to the learned one is smooth, see ``ProductHistory.trend_without``); beta0 and psi
+  from the r-weighted moments of m_i (psi with a one-panel prior psi0 = w, one layer's
+  variance, on offset and slope); mu and Sigma_q from the expected quiet residuals, Sigma_q
+  shrunk toward the prior's structure as in ``layer_history``.
 
-A group of components keeps its trending class only where the mixture beats one class by the
-Bayesian information criterion (Schwarz 1978); otherwise it keeps exactly the one-class model.
+A group of components keeps its learned trending class only where the mixture beats one class
+by the Bayesian information criterion (Schwarz 1978); otherwise the EM's result is the one-class
+model, and the forecast uses the prior's trending class there, with a share that fades as
+complete panels accumulate (``layer_history.ProductHistory.trend_without``, which also adds the
+prior's weight k0 pi0 to a learned share).
 Tx and Ty share one class per panel (``TREND_GROUPS``). Components with no variance (terms the
 product does not fit) keep pi = 0.
 """
@@ -276,7 +280,7 @@ def fit_trend_mixture(z: FloatArray, target: FloatArray, layers: int, *,
     # log-likelihood must beat the one-class model's by the Bayesian information criterion's
     # penalty, 0.5 p log n with p = 1 + 8 (components in the group) (Schwarz, "Estimating the
     # dimension of a model", Ann. Statist. 6, 1978). A product whose panels are all quiet then
-    # keeps exactly the one-class model.
+    # learns the one-class model (the forecast keeps the prior's fading trending class).
     log_q, log_t, _, _ = _log_classes(z, params, x, active)
     gain_ll = np.sum(np.logaddexp(log_q, log_t), axis=0)
     gain_ll = gain_ll - np.sum(_log_classes(z, one_class, x, active)[0], axis=0)

@@ -102,9 +102,9 @@ class ProductCreate(BaseModel):
     p_watch: float = Field(default=0.05, gt=0, lt=1, description="A panel is watched from this "
                            "P(final over limit) (or a via miss probability) on.")
     p_at_risk: float = Field(default=0.50, gt=0, lt=1, description="A panel is at risk (and "
-                             "held) from this P(final over limit) on. With a calibrated "
-                             "forecast about this share of the held panels or more really "
-                             "fail (docs/forecast.md).")
+                             "held) from this P(final over limit) on. For a forecast close "
+                             "to the exact posterior, about this share of the held panels or "
+                             "more really fail (docs/forecast.md).")
     vias: Vias | None = Field(
         default=None,
         description="Via and pad diameters; without them each layer's L2L is judged against "

@@ -118,7 +118,9 @@ class Product(Base):
     pad_width_um: Mapped[float | None]
     via_depth_um: Mapped[float | None]
     resistivity_ohm_m: Mapped[float | None]
-    # Hysteresis: a watched / at-risk panel leaves the level only below these.
+    # Hysteresis: a watched / at-risk panel leaves the level only below these. The server
+    # defaults only filled the rows that existed when the columns came (migration 0007, when
+    # p_at_risk defaulted to 0.20); new products take theirs from ProductCreate (0.02, 0.25).
     p_watch_leave: Mapped[float] = mapped_column(Float, server_default=text("0.02"))
     p_at_risk_leave: Mapped[float] = mapped_column(Float, server_default=text("0.1"))
     created_at: Mapped[datetime] = mapped_column(Stamp, default=utcnow)

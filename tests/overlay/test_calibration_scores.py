@@ -41,3 +41,13 @@ def test_lowest_false_alarm_is_the_best_threshold_by_brute_force() -> None:
                 best = min(best, ps.false_alarm.value)
         assert fa == pytest.approx(best)
         assert panel_scores(p >= theta, y, by=9).miss.value <= 0.05
+        # On the last layer alone: the same scan with only layer 9's P able to flag.
+        theta, fa = lowest_false_alarm(p, y, by=9, miss=0.05, last_only=True)
+        last = np.zeros_like(p, dtype=bool)
+        best = np.inf
+        for t in np.unique(p[:, 8]):
+            last[:, 8] = p[:, 8] >= t
+            ps = panel_scores(last, y, by=9)
+            if ps.miss.value <= 0.05:
+                best = min(best, ps.false_alarm.value)
+        assert fa == pytest.approx(best)

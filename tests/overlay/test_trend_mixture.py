@@ -11,7 +11,9 @@ from scipy import stats
 from app.overlay.forecast import forecast_final
 from app.overlay.layer_history import (
     PRIOR_PANELS,
+    PRIOR_TREND_SHARE,
     TO_COMPONENTS,
+    ProductHistory,
     learn_history,
     limit_variance,
 )
@@ -100,10 +102,53 @@ def test_quiet_product_keeps_one_class():
     assert not learn(t).trend_share.any()
 
 
-def test_growing_panel_is_forecast_with_its_growth():
+def test_prior_trending_class_and_how_it_fades():
+    x = trend_design(L)
+    # No complete panel (every panel in process, layers 1-3): the prior's class alone, share
+    # pi0 where the component varies, mean 0, X diag(w) X^T with the panel's own layers left out.
+    t, _, _ = panels(40, share=0.0)
+    have = np.zeros((40, 2, L), dtype=bool)
+    have[:, :, :3] = True
+    h0 = learn_history(t, have, np.zeros((40, 2, L), dtype=int), ("T0",),
+                       panel_ids=tuple(f"P{i}" for i in range(40)), flip_axis="y",
+                       limit_var=LIMIT_VAR)
+    assert h0.n_complete == 0
+    for panel in (None, "P3"):
+        share, mean, cov = h0.trend_without(panel)
+        w = h0.capability_without(panel)
+        np.testing.assert_allclose(share, np.where(w > 0, PRIOR_TREND_SHARE, 0.0))
+        assert not mean.any()
+        np.testing.assert_allclose(cov, np.einsum("ij,c,kj->cik", x, w, x))
+    assert not np.allclose(h0.trend_without(None)[2], h0.trend_without("P3")[2])
+    # Quiet history, no learned class: the prior's share fades as pi0 k0 / (k0 + n).
+    quiet = learn(panels(300, share=0.0)[0])
+    share, _, _ = quiet.trend_without(None)
+    w = quiet.capability_without(None)
+    fade = PRIOR_TREND_SHARE * PRIOR_PANELS / (PRIOR_PANELS + 300)
+    np.testing.assert_allclose(share, np.where(w > 0, fade, 0.0))
+    # A learned class keeps its mean and covariance; the prior adds its weight to the share:
+    # (sum r + k0 pi0) / (n + k0).
+    h = learn(panels(600, share=0.15)[0])
+    share, mean, cov = h.trend_without(None)
+    fade = PRIOR_TREND_SHARE * PRIOR_PANELS / (PRIOR_PANELS + 600)
+    assert share[2] == pytest.approx(h.trend_share[2] + fade)
+    np.testing.assert_allclose(mean[2], h.trend_mean[2])
+    np.testing.assert_allclose(cov[2], h.trend_cov[2])
+    assert share.max() < 1.0
+
+
+def test_growing_panel_is_forecast_with_its_growth(monkeypatch):
     t, _, _ = panels(600, share=0.15)
     h = learn(t)
     one_class = replace(h, trend_share=np.zeros(8))
+    # One class means no prior trending class either (layer_history.trend_without).
+    real_trend_without = ProductHistory.trend_without
+
+    def trend_without(self, panel_id):
+        share, mean, cov = real_trend_without(self, panel_id)
+        return (share if self is not one_class else 0.0 * share), mean, cov
+
+    monkeypatch.setattr(ProductHistory, "trend_without", trend_without)
     fresh, _, _ = panels(400, share=1.0, seed=21)
     z = {"mixture": [], "one class": []}
     weights = []
@@ -124,7 +169,7 @@ def test_growing_panel_is_forecast_with_its_growth():
     assert abs(np.mean(z["mixture"])) < 0.5 < np.mean(z["one class"]) - 0.5
     f = forecast_final(observed_a={1: fresh[0, 0, 0]}, observed_b={}, history=h,
                        points_mm=CENTRE, ftb_limit_um=50.0, n_max=500)
-    assert "quiet and trending panels in scale;" in f.method
+    assert "quiet and trending panels (learned in scale; the prior's elsewhere);" in f.method
     assert "trending" not in forecast_final(
         observed_a={1: fresh[0, 0, 0]}, observed_b={}, history=one_class, points_mm=CENTRE,
         ftb_limit_um=50.0, n_max=500).method
