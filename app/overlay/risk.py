@@ -236,6 +236,29 @@ def _drift_reason(side: str, trend: SideTrend) -> str:
     return f"{head}; {each} is expected to add {expect:.1f} um toward {_direction(px, py)}."
 
 
+#: Index of the iso scale (Sx + Sy) / 2 in the forecast's components (layer_history.COMPONENTS).
+_SCALE_COMPONENT: Final = 2
+#: A panel's scale is named as growing when the trending class is at least this likely for it.
+_GROWING_POSTERIOR: Final = 0.5
+_PPM_PER_UM_MM: Final = 1e3
+
+
+def _scale_reason(forecast: Forecast) -> str | None:
+    """A sentence on a growing scale when the forecast holds the panel's scale as trending: the
+    cause that a translation drift sentence does not show (a core that grows layer by layer)."""
+    weight = float(forecast.trending[_SCALE_COMPONENT]) if forecast.trending.size else 0.0
+    if weight < _GROWING_POSTERIOR:
+        return None
+    now = _PPM_PER_UM_MM * 0.5 * float(forecast.current_terms[2] + forecast.current_terms[3])
+    final = _PPM_PER_UM_MM * 0.5 * float(forecast.final_mean_terms[2]
+                                         + forecast.final_mean_terms[3])
+    return (
+        f"Its scale changes layer by layer, the way a growing core does ({_pct(weight)} likely "
+        f"from its layers so far): the FTB scale is {now:+.1f} ppm now and expected near "
+        f"{final:+.1f} ppm when every layer is on."
+    )
+
+
 def _remaining_phrase(forecast: Forecast) -> str:
     a, b = forecast.trend_a, forecast.trend_b
     n_a, n_b = len(a.remaining_layers), len(b.remaining_layers)
@@ -273,6 +296,9 @@ def _forecast_reasons(
         for side, trend in (("A", forecast.trend_a), ("B", forecast.trend_b))
         if trend.observed_layers
     ]
+    scale = _scale_reason(forecast)
+    if scale:
+        reasons.append(scale)
     lo, hi = forecast.band_um
     reasons.append(
         f"{_remaining_phrase(forecast)}, the final FTB is expected near "

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import re
 
 import numpy as np
@@ -359,3 +360,28 @@ def test_leave_thresholds_are_checked():
     with pytest.raises(OverlayInputError, match="p_watch_leave"):
         RiskThresholds(ftb_limit_um=60.0, l2l_limit_um=12.0, p_watch_leave=0.0)
     assert LIMITS.decision_points() == (0.02, 0.05, 0.25, 0.50)
+
+
+def test_a_growing_scale_is_named_with_its_figures() -> None:
+    # The forecast holds the scale as trending (posterior 0.86): the reasons name it, with the
+    # FTB scale now and expected (Sx, Sy in um/mm; 1e-3 um/mm is 1 ppm).
+    fc = forecast(0.64)
+    current = np.zeros(8)
+    current[2:4] = (0.0031, 0.0029)
+    final = np.zeros(8)
+    final[2:4] = (0.0079, 0.0081)
+    weights = np.zeros(8)
+    weights[2] = 0.86
+    grown = dataclasses.replace(fc, current_terms=current, final_mean_terms=final,
+                                trending=weights)
+    result = run(fc=grown)
+    said = [r for r in result.reasons if "growing core" in r]
+    assert said == ["Its scale changes layer by layer, the way a growing core does (86 % likely "
+                    "from its layers so far): the FTB scale is +3.0 ppm now and expected near "
+                    "+8.0 ppm when every layer is on."]
+    # It stands before the sentence on the final FTB, which stays last.
+    assert result.reasons[-1].startswith("With ")
+    # Below an even chance of trending, no such sentence.
+    weights[2] = 0.49
+    quiet = dataclasses.replace(grown, trending=weights)
+    assert not [r for r in run(fc=quiet).reasons if "growing core" in r]
