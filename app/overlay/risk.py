@@ -252,8 +252,10 @@ def _scale_reason(forecast: Forecast) -> str | None:
     now = _PPM_PER_UM_MM * 0.5 * float(forecast.current_terms[2] + forecast.current_terms[3])
     final = _PPM_PER_UM_MM * 0.5 * float(forecast.final_mean_terms[2]
                                          + forecast.final_mean_terms[3])
+    # An estimate, so never "100 %" (as _chance).
+    likely = "more than 99 %" if weight > 0.99 else _pct(weight)
     return (
-        f"Its scale changes layer by layer, the way a growing core does ({_pct(weight)} likely "
+        f"Its scale changes layer by layer, the way a growing core does ({likely} likely "
         f"from its layers so far): the FTB scale is {now:+.1f} ppm now and expected near "
         f"{final:+.1f} ppm when every layer is on."
     )

@@ -381,6 +381,11 @@ def test_a_growing_scale_is_named_with_its_figures() -> None:
                     "+8.0 ppm when every layer is on."]
     # It stands before the sentence on the final FTB, which stays last.
     assert result.reasons[-1].startswith("With ")
+    # An estimate is never "100 %".
+    weights[2] = 0.996
+    sure = dataclasses.replace(grown, trending=weights)
+    assert any("(more than 99 % likely from its layers so far)" in r
+               for r in run(fc=sure).reasons)
     # Below an even chance of trending, no such sentence.
     weights[2] = 0.49
     quiet = dataclasses.replace(grown, trending=weights)
