@@ -58,7 +58,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -68,7 +68,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from calibration_oracle import flags, oracle_p
 from calibration_scores import layer_score, panel_scores, print_sweep, z_scores
 from line_core import _fit_sd, run_core
-from line_sim import PPM, Line, LineConfig, Lot
+from line_sim import PPM, Line, LineConfig, Lot, add_line_options, line_config
 
 from app.overlay.model import design_matrix
 
@@ -408,25 +408,12 @@ def print_flags(p: np.ndarray, y: np.ndarray) -> None:
         )
 
 
-def config_from(args: argparse.Namespace) -> LineConfig:
-    config = LineConfig()
-    if args.drift_share is not None:
-        config = replace(config, drift_share=args.drift_share)
-    if args.growth_share is not None:
-        config = replace(config, growth_share=args.growth_share)
-    if args.drift_um is not None:
-        config = replace(config, drift_um=tuple(args.drift_um))
-    return config
-
-
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--warm-lots", type=int, default=23)
     ap.add_argument("--lots", type=int, default=16)
     ap.add_argument("--seed", type=int, default=2026)
-    ap.add_argument("--drift-share", type=float, default=None)
-    ap.add_argument("--growth-share", type=float, default=None)
-    ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
+    add_line_options(ap)
     ap.add_argument("--samples", type=int, default=10000, help="Monte Carlo draws a panel/layer")
     ap.add_argument("--mc-seed", type=int, default=None, help="default: seed + 2")
     ap.add_argument(
@@ -442,7 +429,7 @@ def main() -> None:
         help="also run line_core.run_core and the oracle on the same line",
     )
     args = ap.parse_args()
-    config = config_from(args)
+    config = line_config(args)
     grid = tuple(max(1, round(g * args.grid_scale)) for g in GRID)
     assert len(grid) == 3
     t = time.perf_counter()

@@ -17,7 +17,6 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -26,7 +25,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from calibration_scores import layer_score, panel_scores, print_sweep, print_watch, z_scores
 from line_core import run_core
-from line_sim import Line, LineConfig
+from line_sim import Line, add_line_options, line_config
 
 CHECK_LAYERS = (3, 6, 9)
 
@@ -36,23 +35,9 @@ def main() -> None:
     ap.add_argument("--warm-lots", type=int, default=23)
     ap.add_argument("--lots", type=int, default=16)
     ap.add_argument("--seed", type=int, default=2026)
-    ap.add_argument("--drift-share", type=float, default=None)
-    ap.add_argument("--growth-share", type=float, default=None)
-    ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
-    ap.add_argument("--walk-um", type=float, default=None)
-    ap.add_argument("--offset-um", type=float, default=None)
+    add_line_options(ap)
     args = ap.parse_args()
-    config = LineConfig()
-    if args.drift_share is not None:
-        config = replace(config, drift_share=args.drift_share)
-    if args.growth_share is not None:
-        config = replace(config, growth_share=args.growth_share)
-    if args.walk_um is not None:
-        config = replace(config, walk_um=args.walk_um)
-    if args.offset_um is not None:
-        config = replace(config, offset_um=args.offset_um)
-    if args.drift_um is not None:
-        config = replace(config, drift_um=tuple(args.drift_um))
+    config = line_config(args)
     t = time.perf_counter()
     line = Line(config, seed=args.seed)
     run = run_core(line, lots=args.warm_lots + args.lots, score_from=args.warm_lots)

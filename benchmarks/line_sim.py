@@ -25,8 +25,9 @@ accumulation) against ``ftb_limit_um``.
 
 from __future__ import annotations
 
+import argparse
 from collections.abc import Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -66,6 +67,25 @@ class LineConfig:
     tool_rotation_urad: float = 1.0
     tool_drift_um_per_step: float = 0.03
     kept_lot_share: float = 0.5
+
+
+def add_line_options(ap: argparse.ArgumentParser) -> None:
+    """The command-line options that change the line from its defaults (``line_config``)."""
+    ap.add_argument("--drift-share", type=float, default=None)
+    ap.add_argument("--growth-share", type=float, default=None)
+    ap.add_argument("--drift-um", type=float, nargs=2, default=None, metavar=("LO", "HI"))
+    ap.add_argument("--walk-um", type=float, default=None)
+    ap.add_argument("--offset-um", type=float, default=None)
+
+
+def line_config(args: argparse.Namespace) -> LineConfig:
+    """``LineConfig`` with the options of ``add_line_options`` that were given."""
+    changes = {name: getattr(args, name) for name in
+               ("drift_share", "growth_share", "walk_um", "offset_um")
+               if getattr(args, name) is not None}
+    if args.drift_um is not None:
+        changes["drift_um"] = tuple(args.drift_um)
+    return replace(LineConfig(), **changes)
 
 
 @dataclass

@@ -217,13 +217,11 @@ def _method(history: ProductHistory, tool: str | None, ex: WorstPointExceedance,
     carried = f"; exposure tool {tool}'s effect carried into the remaining layers" if tool else ""
     # ``share`` is the trending share used (layer_history.trend_without): the prior's class
     # wherever history has not learned one.
-    learned = ", ".join(name for name, pi in zip(COMPONENTS, history.trend_share, strict=True)
-                        if pi > 0.0)
-    prior = any(pi > 0.0 and old == 0.0
-                for pi, old in zip(share, history.trend_share, strict=True))
-    where = "; ".join(([f"learned in {learned}"] if learned else [])
-                      + (["the prior's elsewhere" if learned else "the prior's"] if prior else []))
-    classes = f"; quiet and trending panels ({where})" if where else ""
+    learned = [name for name, pi in zip(COMPONENTS, history.trend_share, strict=True) if pi > 0]
+    parts = [f"learned in {', '.join(learned)}"] if learned else []
+    if np.any((share > 0.0) & (history.trend_share == 0.0)):
+        parts.append("the prior's elsewhere" if learned else "the prior's")
+    classes = f"; quiet and trending panels ({'; '.join(parts)})" if parts else ""
     return (
         f"layer-by-layer conditional forecast from {source}{classes}{carried}; "
         f"{ex.n_samples} seeded samples (Monte Carlo standard error {ex.stderr:.3f})"

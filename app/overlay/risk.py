@@ -246,7 +246,7 @@ _PPM_PER_UM_MM: Final = 1e3
 def _scale_reason(forecast: Forecast) -> str | None:
     """A sentence on a growing scale when the forecast holds the panel's scale as trending: the
     cause that a translation drift sentence does not show (a core that grows layer by layer)."""
-    weight = float(forecast.trending[_SCALE_COMPONENT]) if forecast.trending.size else 0.0
+    weight = float(forecast.trending[_SCALE_COMPONENT])
     if weight < _GROWING_POSTERIOR:
         return None
     now = _PPM_PER_UM_MM * 0.5 * float(forecast.current_terms[2] + forecast.current_terms[3])
